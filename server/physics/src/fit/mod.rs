@@ -1,0 +1,10 @@
+//! Estimators: every fit returns a report with parameters, uncertainties,
+//! goodness of fit and why it stopped. Depends on `model` and `numerics`.
+
+pub mod collapse;
+pub mod diagnosis;
+pub mod lattice_walk_fit;
+pub mod profile;
+pub mod short_time_check;
+pub mod tail;
+pub mod width;

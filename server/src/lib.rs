@@ -1,0 +1,9 @@
+//! spreadscope: one binary serving a local dashboard and a command line for
+//! transport analysis of quantum-simulator spin chains.
+//!
+//! Layers (arrows point down; `tests/architecture.rs` enforces them):
+//! `cli`/`app` → `api` → `service` → {`store`, `ingest`} → `dataset` and the
+//! pure core `spreadscope_physics` (numerics → model → fit).
+
+pub mod dataset;
+pub mod ingest;
