@@ -34,7 +34,9 @@ impl DatasetMeta {
     pub fn validate(&self) -> Result<(), String> {
         if let Some(a) = self.alpha {
             if !(a.is_finite() && a > 0.0) {
-                return Err(format!("field `alpha`: {a} is not a positive finite number"));
+                return Err(format!(
+                    "field `alpha`: {a} is not a positive finite number"
+                ));
             }
         }
         if let (Some(n), Some(j)) = (self.chain_length, self.source_site) {
@@ -44,10 +46,7 @@ impl DatasetMeta {
                 ));
             }
         }
-        for (name, text) in [
-            ("platform", &self.platform),
-            ("time_unit", &self.time_unit),
-        ] {
+        for (name, text) in [("platform", &self.platform), ("time_unit", &self.time_unit)] {
             if text.chars().count() > 200 {
                 return Err(format!("field `{name}`: longer than 200 characters"));
             }

@@ -1,5 +1,7 @@
 //! The `spreadscope` binary: a shim over [`spreadscope::cli`].
 
+use clap::Parser;
+
 fn main() -> std::process::ExitCode {
-    std::process::ExitCode::SUCCESS
+    spreadscope::cli::run(spreadscope::cli::Cli::parse())
 }

@@ -31,7 +31,11 @@ pub fn close(a: f64, b: f64, rel: f64, abs: f64) -> bool {
 #[must_use]
 pub fn rel_diff(a: f64, b: f64) -> f64 {
     let scale = a.abs().max(b.abs());
-    if scale == 0.0 { 0.0 } else { (a - b).abs() / scale }
+    if scale == 0.0 {
+        0.0
+    } else {
+        (a - b).abs() / scale
+    }
 }
 
 #[cfg(test)]

@@ -335,7 +335,12 @@ mod tests {
         // 0.25 + 0.5 + 0.25 = 1 exactly in binary floating point.
         assert!(crate::tolerance::close(rule[1].sum, 1.0, 0.0, 0.0));
         let expected = (0.09f64 + 0.16 + 0.0012 * 0.0012).sqrt();
-        assert!(crate::tolerance::close(rule[1].err.unwrap(), expected, 1e-15, 0.0));
+        assert!(crate::tolerance::close(
+            rule[1].err.unwrap(),
+            expected,
+            1e-15,
+            0.0
+        ));
     }
 
     #[test]
@@ -368,7 +373,9 @@ mod tests {
 
     #[test]
     fn window_selects_times_and_offsets() {
-        let w = sample().window(Some(0.5), None, Some(0)).expect("non-empty");
+        let w = sample()
+            .window(Some(0.5), None, Some(0))
+            .expect("non-empty");
         assert_eq!(w.offsets(), &[0]);
         assert_eq!(w.times().len(), 1);
         assert!(sample().window(Some(5.0), None, None).is_err());

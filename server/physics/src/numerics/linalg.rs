@@ -57,7 +57,9 @@ mod tests {
         assert!((e.values[0] - 1.0).abs() < 1e-14);
         assert!((e.values[1] - 3.0).abs() < 1e-14);
         let v = &e.vectors;
-        let recon = v.dot(&Array2::from_diag(&ndarray::arr1(&e.values))).dot(&v.t());
+        let recon = v
+            .dot(&Array2::from_diag(&ndarray::arr1(&e.values)))
+            .dot(&v.t());
         assert!((recon[(0, 1)] - 1.0).abs() < 1e-14);
     }
 

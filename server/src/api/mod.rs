@@ -1,0 +1,366 @@
+//! Api: the only code that knows HTTP and JSON wire shapes.
+//!
+//! Builds the [`Router`]: the dashboard page, embedded assets and the JSON API
+//! under `/api`. Maps every [`ServiceError`] to one status code in one place.
+//! Handlers are thin: parse the request, call the service, shape the answer.
+
+pub mod assets;
+
+use std::convert::Infallible;
+use std::time::Duration;
+
+use axum::body::Bytes;
+use axum::extract::{DefaultBodyLimit, Path, Query, State};
+use axum::http::{HeaderName, HeaderValue, StatusCode, header};
+use axum::response::sse::{Event, KeepAlive, Sse};
+use axum::response::{Html, IntoResponse, Response};
+use axum::routing::{get, post, put};
+use axum::{Json, Router};
+use futures_util::Stream;
+use serde::Deserialize;
+use serde_json::{Value, json};
+use tokio_stream::StreamExt;
+use tokio_stream::wrappers::BroadcastStream;
+use tower_http::set_header::SetResponseHeaderLayer;
+
+use crate::dataset::DatasetMeta;
+use crate::ingest::{Format, IngestOptions};
+use crate::service::{CONVENTIONS, PROGRAM_VERSION, Service, ServiceError};
+
+/// Settings of the HTTP layer.
+#[derive(Debug, Clone)]
+pub struct ApiConfig {
+    /// Largest accepted upload body, in bytes.
+    pub max_upload_bytes: usize,
+}
+
+impl Default for ApiConfig {
+    fn default() -> Self {
+        Self {
+            max_upload_bytes: 256 * 1024 * 1024,
+        }
+    }
+}
+
+/// Builds the whole application router. Tests call this without a socket.
+pub fn router(service: Service, config: &ApiConfig) -> Router {
+    let api = Router::new()
+        .route("/sessions", post(create_session))
+        .route("/s/{token}", get(session_info))
+        .route(
+            "/s/{token}/datasets",
+            get(list_datasets)
+                .post(upload_dataset)
+                .layer(DefaultBodyLimit::max(config.max_upload_bytes)),
+        )
+        .route("/s/{token}/datasets/{id}", get(get_dataset))
+        .route("/s/{token}/datasets/{id}/meta", put(update_meta))
+        .route("/s/{token}/events", get(events))
+        .fallback(|| async { ApiError(ServiceError::NotFound) });
+    Router::new()
+        .route("/", get(home))
+        .route("/s/{token}", get(page))
+        .route("/assets/{hash}/{*path}", get(asset))
+        .nest("/api", api)
+        .with_state(service)
+        .layer(header_layer(
+            header::CONTENT_SECURITY_POLICY,
+            "default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline'; \
+             img-src 'self' data: blob:; connect-src 'self'; object-src 'none'; \
+             base-uri 'none'; frame-ancestors 'none'; form-action 'self'",
+        ))
+        .layer(header_layer(header::X_CONTENT_TYPE_OPTIONS, "nosniff"))
+        .layer(header_layer(header::X_FRAME_OPTIONS, "DENY"))
+        // Session links carry their token in the path: never leak it to
+        // another site through the Referer header.
+        .layer(header_layer(header::REFERRER_POLICY, "no-referrer"))
+}
+
+fn header_layer(name: HeaderName, value: &'static str) -> SetResponseHeaderLayer<HeaderValue> {
+    SetResponseHeaderLayer::if_not_present(name, HeaderValue::from_static(value))
+}
+
+/// A service error on its way out as an HTTP response.
+#[derive(Debug)]
+pub struct ApiError(pub ServiceError);
+
+impl From<ServiceError> for ApiError {
+    fn from(e: ServiceError) -> Self {
+        Self(e)
+    }
+}
+
+impl IntoResponse for ApiError {
+    fn into_response(self) -> Response {
+        let (status, body) = match &self.0 {
+            ServiceError::NotFound => (StatusCode::NOT_FOUND, json!({"error": "not found"})),
+            ServiceError::Forbidden => {
+                (StatusCode::FORBIDDEN, json!({"error": self.0.to_string()}))
+            }
+            ServiceError::Invalid(e) => (
+                StatusCode::UNPROCESSABLE_ENTITY,
+                json!({"error": self.0.to_string(), "problems": e.problems}),
+            ),
+            ServiceError::BadRequest(msg) => {
+                (StatusCode::UNPROCESSABLE_ENTITY, json!({"error": msg}))
+            }
+            ServiceError::Internal(msg) => {
+                eprintln!("spreadscope: internal error: {msg}");
+                (
+                    StatusCode::INTERNAL_SERVER_ERROR,
+                    json!({"error": "internal error; see the server's log"}),
+                )
+            }
+        };
+        (status, Json(body)).into_response()
+    }
+}
+
+type ApiResult<T> = Result<T, ApiError>;
+
+async fn home() -> Html<&'static str> {
+    Html(
+        "<!doctype html><meta charset=utf-8><title>spreadscope</title>\
+         <p>spreadscope is running. Open a session link printed by the server \
+         (<code>/s/…</code>), or create one with <code>POST /api/sessions</code>.</p>",
+    )
+}
+
+async fn page(State(service): State<Service>, Path(token): Path<String>) -> Response {
+    match service.access(&token).await {
+        Ok(_) => match assets::index_html() {
+            Some(html) => ([(header::CACHE_CONTROL, "no-store")], Html(html)).into_response(),
+            None => (StatusCode::NOT_FOUND, "front end missing from this build").into_response(),
+        },
+        Err(ServiceError::NotFound) => (
+            StatusCode::NOT_FOUND,
+            Html("<!doctype html><p>No such session.</p>"),
+        )
+            .into_response(),
+        Err(e) => ApiError(e).into_response(),
+    }
+}
+
+async fn asset(Path((hash, path)): Path<(String, String)>) -> Response {
+    assets::serve(&hash, &path)
+}
+
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct NewSession {
+    #[serde(default)]
+    name: String,
+}
+
+async fn create_session(State(service): State<Service>, body: Bytes) -> ApiResult<Response> {
+    let request: NewSession = if body.iter().all(u8::is_ascii_whitespace) {
+        NewSession::default()
+    } else {
+        serde_json::from_slice(&body)
+            .map_err(|e| ServiceError::BadRequest(format!("request body: {e}")))?
+    };
+    let tokens = service.create_session(&request.name).await?;
+    Ok((
+        StatusCode::CREATED,
+        Json(json!({
+            "edit_token": tokens.edit_token,
+            "view_token": tokens.view_token,
+            "edit_url": format!("/s/{}", tokens.edit_token),
+            "view_url": format!("/s/{}", tokens.view_token),
+        })),
+    )
+        .into_response())
+}
+
+async fn session_info(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let s = &access.session;
+    Ok(Json(json!({
+        "name": s.name,
+        "can_edit": access.can_edit,
+        "view_url": format!("/s/{}", s.view_token),
+        "edit_url": access.can_edit.then(|| format!("/s/{}", s.edit_token)),
+        "created_at": s.created_at,
+        "program_version": PROGRAM_VERSION,
+        "conventions": CONVENTIONS,
+    })))
+}
+
+async fn list_datasets(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let list = service.datasets(&access).await?;
+    Ok(Json(json!(list)))
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct UploadQuery {
+    name: Option<String>,
+    format: Option<String>,
+    /// Offsets of a bare NPY array: `A:B` (inclusive) or a comma list.
+    x: Option<String>,
+    /// Times of a bare NPY array: a comma list or `T0:T1:COUNT`.
+    t: Option<String>,
+}
+
+async fn upload_dataset(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+    query: Result<Query<UploadQuery>, axum::extract::rejection::QueryRejection>,
+    body: Bytes,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let Query(query) =
+        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    let name = query.name.unwrap_or_default();
+    let format = match &query.format {
+        Some(f) => f
+            .parse::<Format>()
+            .map_err(|e| ServiceError::BadRequest(format!("parameter `format`: {e}")))?,
+        None => Format::from_file_name(&name)
+            .or_else(|| crate::ingest::sniff(&body))
+            .ok_or_else(|| ServiceError::BadRequest("parameter `format`: missing".into()))?,
+    };
+    let options = IngestOptions {
+        x: query
+            .x
+            .as_deref()
+            .map(parse_offsets)
+            .transpose()
+            .map_err(ServiceError::BadRequest)?,
+        t: query
+            .t
+            .as_deref()
+            .map(parse_times)
+            .transpose()
+            .map_err(ServiceError::BadRequest)?,
+    };
+    let summary = service
+        .add_dataset(&access, &name, format, body.to_vec(), options)
+        .await?;
+    Ok((StatusCode::CREATED, Json(json!(summary))).into_response())
+}
+
+/// `A:B` (inclusive range) or `a,b,c`.
+fn parse_offsets(text: &str) -> Result<Vec<i32>, String> {
+    let bad = |part: &str| format!("parameter `x`: `{part}` is not an integer");
+    if let Some((a, b)) = text.split_once(':') {
+        let a: i32 = a.trim().parse().map_err(|_| bad(a))?;
+        let b: i32 = b.trim().parse().map_err(|_| bad(b))?;
+        if b < a || b - a > 1_000_000 {
+            return Err(format!("parameter `x`: range {a}:{b} is empty or too long"));
+        }
+        return Ok((a..=b).collect());
+    }
+    text.split(',')
+        .map(|p| p.trim().parse().map_err(|_| bad(p)))
+        .collect()
+}
+
+/// `t0,t1,…` or `T0:T1:COUNT` (linear).
+fn parse_times(text: &str) -> Result<Vec<f64>, String> {
+    let bad = |part: &str| format!("parameter `t`: `{part}` is not a number");
+    let parts: Vec<&str> = text.split(':').collect();
+    if let [a, b, n] = parts.as_slice() {
+        let a: f64 = a.trim().parse().map_err(|_| bad(a))?;
+        let b: f64 = b.trim().parse().map_err(|_| bad(b))?;
+        let n: usize = n
+            .trim()
+            .parse()
+            .map_err(|_| format!("parameter `t`: count `{n}` is not a whole number"))?;
+        if !(2..=1_000_000).contains(&n) {
+            return Err("parameter `t`: count must be between 2 and 1000000".into());
+        }
+        return Ok((0..n)
+            .map(|i| a + (b - a) * i as f64 / (n - 1) as f64)
+            .collect());
+    }
+    text.split(',')
+        .map(|p| p.trim().parse().map_err(|_| bad(p)))
+        .collect()
+}
+
+async fn get_dataset(
+    State(service): State<Service>,
+    Path((token, id)): Path<(String, i64)>,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let (summary, map) = service.dataset(&access, id).await?;
+    let mut body = json!(summary);
+    let grid = |a: &ndarray::Array2<f64>| -> Vec<Vec<Option<f64>>> {
+        a.outer_iter()
+            .zip(map.present().outer_iter())
+            .map(|(row, mask)| {
+                row.iter()
+                    .zip(mask.iter())
+                    .map(|(&v, &p)| p.then_some(v))
+                    .collect()
+            })
+            .collect()
+    };
+    let extra = json!({
+        "x": map.offsets(),
+        "t": map.times(),
+        "C": grid(map.values()),
+        "err": map.errors().map(grid),
+        "sum_rule": map.sum_rule(),
+        "autocorrelation": map.autocorrelation().map(|a| a
+            .into_iter()
+            .map(|(t, c, e)| json!({"t": t, "C": c, "err": e}))
+            .collect::<Vec<_>>()),
+    });
+    if let (Some(obj), Value::Object(more)) = (body.as_object_mut(), extra) {
+        obj.extend(more);
+    }
+    Ok(Json(body))
+}
+
+async fn update_meta(
+    State(service): State<Service>,
+    Path((token, id)): Path<(String, i64)>,
+    body: Bytes,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let meta: DatasetMeta = serde_json::from_slice(&body)
+        .map_err(|e| ServiceError::BadRequest(format!("metadata: {e}")))?;
+    let summary = service.update_meta(&access, id, meta).await?;
+    Ok(Json(json!(summary)))
+}
+
+async fn events(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Sse<impl Stream<Item = Result<Event, Infallible>>>> {
+    let access = service.access(&token).await?;
+    let session_id = access.session.id;
+    let stream = BroadcastStream::new(service.subscribe()).filter_map(move |item| {
+        // A lagged receiver skips events; the page re-reads the list on the
+        // next one, so nothing shown stays wrong.
+        let event = item.ok()?;
+        (event.session_id == session_id)
+            .then(|| Ok(Event::default().data(serde_json::to_string(&event).unwrap_or_default())))
+    });
+    Ok(Sse::new(stream).keep_alive(KeepAlive::new().interval(Duration::from_secs(15))))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn axis_parameters_parse_and_name_the_parameter() {
+        assert_eq!(parse_offsets("-2:2").expect("range"), vec![-2, -1, 0, 1, 2]);
+        assert_eq!(parse_offsets("0, 3").expect("list"), vec![0, 3]);
+        assert!(parse_offsets("a:3").unwrap_err().contains("`x`"));
+        let t = parse_times("0:1:3").expect("linspace");
+        assert_eq!(t.len(), 3);
+        assert!((t[1] - 0.5).abs() < 1e-15);
+        assert!(parse_times("1,x").unwrap_err().contains("`t`"));
+    }
+}

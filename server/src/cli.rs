@@ -1,0 +1,108 @@
+//! Command line: `serve`, and the headless engine (`simulate`, `analyze`,
+//! `correlate`). Owns argument parsing and human/JSON printing; the work is
+//! done by the service (serve) or the pure core (the rest).
+//!
+//! Exit codes: 0 success, 2 bad input (a one-line reason naming the file,
+//! line or option), 1 any other failure.
+
+use std::net::{IpAddr, SocketAddr};
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand};
+
+use crate::api::ApiConfig;
+use crate::app::{self, App};
+
+#[derive(Debug, Parser)]
+#[command(
+    name = "spreadscope",
+    version,
+    about = "Transport analysis of spin-chain correlation maps: dashboard and headless engine"
+)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Serve the dashboard (a fresh data directory starts with the demo session).
+    Serve(ServeArgs),
+}
+
+#[derive(Debug, clap::Args)]
+pub struct ServeArgs {
+    /// Directory holding the session database.
+    #[arg(long, default_value = "spreadscope-data")]
+    pub data: PathBuf,
+    /// Address to bind; anything but loopback exposes the sessions to the network.
+    #[arg(long, default_value = "127.0.0.1")]
+    pub bind: IpAddr,
+    /// Port (0 picks a free one).
+    #[arg(long, default_value_t = 7878)]
+    pub port: u16,
+    /// Largest accepted upload, in MiB.
+    #[arg(long, default_value_t = 256)]
+    pub max_upload_mb: usize,
+}
+
+/// A failure of a command, with the exit code it maps to.
+#[derive(Debug)]
+pub enum CliError {
+    /// Bad input: exit 2.
+    Input(String),
+    /// Anything else: exit 1.
+    Failure(String),
+}
+
+/// Runs the parsed command line.
+#[must_use]
+pub fn run(cli: Cli) -> ExitCode {
+    let result = match cli.command {
+        Command::Serve(args) => serve(&args),
+    };
+    match result {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(CliError::Input(msg)) => {
+            eprintln!("spreadscope: {msg}");
+            ExitCode::from(2)
+        }
+        Err(CliError::Failure(msg)) => {
+            eprintln!("spreadscope: {msg}");
+            ExitCode::from(1)
+        }
+    }
+}
+
+fn serve(args: &ServeArgs) -> Result<(), CliError> {
+    let runtime = tokio::runtime::Runtime::new().map_err(|e| CliError::Failure(e.to_string()))?;
+    runtime.block_on(async {
+        let api = ApiConfig {
+            max_upload_bytes: args.max_upload_mb.saturating_mul(1024 * 1024),
+        };
+        let app = App::open(&args.data, &api)
+            .await
+            .map_err(CliError::Failure)?;
+        let listener = tokio::net::TcpListener::bind(SocketAddr::new(args.bind, args.port))
+            .await
+            .map_err(|e| {
+                CliError::Input(format!("--bind {} --port {}: {e}", args.bind, args.port))
+            })?;
+        let addr = listener
+            .local_addr()
+            .map_err(|e| CliError::Failure(e.to_string()))?;
+        if !args.bind.is_loopback() {
+            eprintln!(
+                "spreadscope: WARNING: bound to {addr}, reachable from the network: \
+                 anyone holding a link below can read (view) or write (edit) that session."
+            );
+        }
+        app::print_links(&app.service, addr)
+            .await
+            .map_err(CliError::Failure)?;
+        app::serve(listener, app.router, app::shutdown_signal())
+            .await
+            .map_err(|e| CliError::Failure(e.to_string()))
+    })
+}

@@ -1,0 +1,1120 @@
+//! NPY and NPZ correlation maps.
+//!
+//! - NPZ (an uncompressed zip of `.npy` members, as `numpy.savez` writes):
+//!   arrays `C` (times × sites, float64 or float32), `t` (times), `x`
+//!   (offsets, integer or integral float), optional `err` (same shape as `C`)
+//!   and optional `mask` (bool, same shape, true = present). Array names take
+//!   the CSV column aliases. A NaN in `C` at a present point is a problem;
+//!   missing points are marked by `mask`. Compressed archives
+//!   (`numpy.savez_compressed`) are refused with a sentence saying so.
+//! - NPY: one 2-D float array (times × sites); its axes come from the
+//!   request ([`IngestOptions`]), and their absence is a problem naming the
+//!   request parameter.
+//!
+//! The `.npy` reader is written here over the byte slice (NumPy NEP 1, "A
+//! simple file format for NumPy arrays", versions 1.0–3.0) so that every
+//! length in a header is checked against the bytes actually present before
+//! anything is allocated: a forged header cannot make the server reserve
+//! memory it never received. Supported dtypes: float64/32, signed and
+//! unsigned integers of 1–8 bytes, bool; either byte order; C or Fortran
+//! order. Problems name the array and index, never a line. Knows nothing of
+//! other formats, the file system or HTTP.
+
+use std::io::{Cursor, Read};
+
+use super::grid::{self, Point};
+use super::{IngestError, IngestOptions, Ingested, NPY_MAGIC, Problems, Role};
+use crate::dataset::DatasetMeta;
+
+/// The most bytes read from one archive member: the largest permitted grid
+/// in float64 plus room for the header.
+const MAX_MEMBER_BYTES: u64 = (grid::MAX_GRID_POINTS as u64) * 8 + (1 << 20);
+
+/// The element kinds of NumPy dtypes this reader decodes.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Kind {
+    Float,
+    Int,
+    UInt,
+    Bool,
+}
+
+/// A decoded array: every element as f64 (bool as 0/1), in file order.
+#[derive(Debug)]
+struct NpyArray {
+    descr: String,
+    kind: Kind,
+    shape: Vec<usize>,
+    fortran: bool,
+    data: Vec<f64>,
+}
+
+impl NpyArray {
+    /// Element `(i, j)` of a 2-D array in either memory order.
+    fn at2(&self, i: usize, j: usize) -> Option<f64> {
+        let (&rows, &cols) = (self.shape.first()?, self.shape.get(1)?);
+        if i >= rows || j >= cols {
+            return None;
+        }
+        let index = if self.fortran {
+            j.checked_mul(rows)?.checked_add(i)?
+        } else {
+            i.checked_mul(cols)?.checked_add(j)?
+        };
+        self.data.get(index).copied()
+    }
+
+    fn shape_text(&self) -> String {
+        let dims: Vec<String> = self.shape.iter().map(usize::to_string).collect();
+        format!("({})", dims.join(", "))
+    }
+
+    /// `(rows, cols)` of a 2-D array.
+    fn dim2(&self) -> Option<(usize, usize)> {
+        match self.shape.as_slice() {
+            [r, c] => Some((*r, *c)),
+            _ => None,
+        }
+    }
+}
+
+/// A little reader of the Python literal in an NPY header, e.g.
+/// `{'descr': '<f8', 'fortran_order': False, 'shape': (3, 4), }`.
+struct Literal<'a> {
+    text: &'a [u8],
+    pos: usize,
+}
+
+#[derive(Debug)]
+enum PyValue {
+    Str(String),
+    Bool(bool),
+    Tuple(Vec<usize>),
+}
+
+impl Literal<'_> {
+    fn skip_space(&mut self) {
+        while self.text.get(self.pos).is_some_and(u8::is_ascii_whitespace) {
+            self.pos += 1;
+        }
+    }
+
+    fn peek(&mut self) -> Option<u8> {
+        self.skip_space();
+        self.text.get(self.pos).copied()
+    }
+
+    fn expect(&mut self, byte: u8) -> Result<(), String> {
+        if self.peek() == Some(byte) {
+            self.pos += 1;
+            Ok(())
+        } else {
+            Err(format!(
+                "expected `{}` at header position {}",
+                char::from(byte),
+                self.pos
+            ))
+        }
+    }
+
+    fn string(&mut self) -> Result<String, String> {
+        let quote = self.peek().filter(|q| *q == b'\'' || *q == b'"');
+        let Some(quote) = quote else {
+            return Err(format!(
+                "expected a quoted string at header position {}",
+                self.pos
+            ));
+        };
+        let start = self.pos + 1;
+        let len = self
+            .text
+            .get(start..)
+            .and_then(|rest| rest.iter().position(|&b| b == quote))
+            .ok_or("unterminated string in the header")?;
+        let bytes = self.text.get(start..start + len).unwrap_or_default();
+        self.pos = start + len + 1;
+        String::from_utf8(bytes.to_vec()).map_err(|_| "the header is not UTF-8".to_string())
+    }
+
+    fn word(&mut self, word: &str) -> bool {
+        self.skip_space();
+        let end = self.pos + word.len();
+        if self.text.get(self.pos..end) == Some(word.as_bytes()) {
+            self.pos = end;
+            true
+        } else {
+            false
+        }
+    }
+
+    fn tuple(&mut self) -> Result<Vec<usize>, String> {
+        self.expect(b'(')?;
+        let mut dims = Vec::new();
+        loop {
+            match self.peek() {
+                Some(b')') => {
+                    self.pos += 1;
+                    return Ok(dims);
+                }
+                Some(b) if b.is_ascii_digit() => {
+                    let start = self.pos;
+                    while self.text.get(self.pos).is_some_and(u8::is_ascii_digit) {
+                        self.pos += 1;
+                    }
+                    let digits = self.text.get(start..self.pos).unwrap_or_default();
+                    let dim = std::str::from_utf8(digits)
+                        .ok()
+                        .and_then(|d| d.parse::<usize>().ok())
+                        .ok_or("a dimension of the shape is too large")?;
+                    dims.push(dim);
+                    // Python 2 wrote long integers with an `L` suffix.
+                    if self.text.get(self.pos) == Some(&b'L') {
+                        self.pos += 1;
+                    }
+                    if self.peek() == Some(b',') {
+                        self.pos += 1;
+                    }
+                }
+                _ => return Err("the shape is not a tuple of whole numbers".into()),
+            }
+        }
+    }
+
+    fn value(&mut self) -> Result<PyValue, String> {
+        match self.peek() {
+            Some(b'\'' | b'"') => self.string().map(PyValue::Str),
+            Some(b'(') => self.tuple().map(PyValue::Tuple),
+            _ if self.word("True") => Ok(PyValue::Bool(true)),
+            _ if self.word("False") => Ok(PyValue::Bool(false)),
+            Some(b'[') => Err("structured dtypes are not supported".into()),
+            _ => Err(format!("unreadable header value at position {}", self.pos)),
+        }
+    }
+
+    /// The header dictionary as (key, value) pairs.
+    fn dict(&mut self) -> Result<Vec<(String, PyValue)>, String> {
+        self.expect(b'{')?;
+        let mut entries = Vec::new();
+        loop {
+            if self.peek() == Some(b'}') {
+                self.pos += 1;
+                break;
+            }
+            let key = self.string()?;
+            self.expect(b':')?;
+            let value = self.value()?;
+            entries.push((key, value));
+            match self.peek() {
+                Some(b',') => self.pos += 1,
+                Some(b'}') => {}
+                _ => {
+                    return Err(format!(
+                        "expected `,` or `}}` at header position {}",
+                        self.pos
+                    ));
+                }
+            }
+        }
+        if self.peek().is_some() {
+            return Err("unexpected text after the header dictionary".into());
+        }
+        Ok(entries)
+    }
+}
+
+/// The first `N` bytes of a chunk as an array (zero-padded if shorter).
+fn bytes_of<const N: usize>(chunk: &[u8]) -> [u8; N] {
+    let mut out = [0u8; N];
+    for (o, b) in out.iter_mut().zip(chunk) {
+        *o = *b;
+    }
+    out
+}
+
+/// Decodes one element stored with `size` bytes in the given byte order.
+fn decode(kind: Kind, size: usize, big_endian: bool, chunk: &[u8]) -> f64 {
+    // Bring the bytes to little-endian order, then read them natively.
+    let mut le = [0u8; 8];
+    for (o, b) in le.iter_mut().zip(chunk) {
+        *o = *b;
+    }
+    if let Some(used) = le.get_mut(..size).filter(|_| big_endian) {
+        used.reverse();
+    }
+    match (kind, size) {
+        (Kind::Float, 4) => f64::from(f32::from_le_bytes(bytes_of::<4>(&le))),
+        (Kind::Float, _) => f64::from_le_bytes(bytes_of::<8>(&le)),
+        (Kind::Int, 1) => f64::from(i8::from_le_bytes(bytes_of::<1>(&le))),
+        (Kind::Int, 2) => f64::from(i16::from_le_bytes(bytes_of::<2>(&le))),
+        (Kind::Int, 4) => f64::from(i32::from_le_bytes(bytes_of::<4>(&le))),
+        // Offsets and times beyond 2^53 lose precision here; such values
+        // are refused later (offsets) or are far beyond any real time axis.
+        (Kind::Int, _) => i64::from_le_bytes(bytes_of::<8>(&le)) as f64,
+        (Kind::UInt, 1) => f64::from(u8::from_le_bytes(bytes_of::<1>(&le))),
+        (Kind::UInt, 2) => f64::from(u16::from_le_bytes(bytes_of::<2>(&le))),
+        (Kind::UInt, 4) => f64::from(u32::from_le_bytes(bytes_of::<4>(&le))),
+        (Kind::UInt, _) => u64::from_le_bytes(bytes_of::<8>(&le)) as f64,
+        (Kind::Bool, _) => f64::from(u8::from(le[0] != 0)),
+    }
+}
+
+/// The kind, item size and byte order of a dtype string such as `<f8`.
+fn dtype(descr: &str) -> Option<(Kind, usize, bool)> {
+    let mut chars = descr.chars();
+    let (order, rest) = match chars.next()? {
+        c @ ('<' | '>' | '|' | '=') => (c, chars.as_str()),
+        _ => ('=', descr),
+    };
+    let big_endian = order == '>' || (order == '=' && cfg!(target_endian = "big"));
+    let kind = match rest.get(..1)? {
+        "f" => Kind::Float,
+        "i" => Kind::Int,
+        "u" => Kind::UInt,
+        "b" => Kind::Bool,
+        _ => return None,
+    };
+    let size: usize = rest.get(1..)?.parse().ok()?;
+    match (kind, size) {
+        (Kind::Float, 4 | 8) | (Kind::Int | Kind::UInt, 1 | 2 | 4 | 8) | (Kind::Bool, 1) => {
+            Some((kind, size, big_endian))
+        }
+        _ => None,
+    }
+}
+
+/// Reads one `.npy` image. The error is a sentence without the array's name.
+fn read_array(bytes: &[u8]) -> Result<NpyArray, String> {
+    let rest = bytes
+        .strip_prefix(NPY_MAGIC)
+        .ok_or("not an NPY array (the magic string \\x93NUMPY is missing)")?;
+    let (major, minor) = match rest {
+        [major, minor, ..] => (*major, *minor),
+        _ => return Err("the NPY header is truncated".into()),
+    };
+    let (header_len, header_start) = match (major, rest.get(2..)) {
+        (1, Some([a, b, ..])) => (usize::from(u16::from_le_bytes([*a, *b])), 4),
+        (2 | 3, Some([a, b, c, d, ..])) => {
+            let len = u32::from_le_bytes([*a, *b, *c, *d]);
+            (
+                usize::try_from(len).map_err(|_| "the NPY header is too long")?,
+                6,
+            )
+        }
+        (1..=3, _) => return Err("the NPY header is truncated".into()),
+        _ => return Err(format!("NPY version {major}.{minor} is not supported")),
+    };
+    let header_end =
+        usize::checked_add(header_start, header_len).ok_or("the NPY header is too long")?;
+    let header = rest
+        .get(header_start..header_end)
+        .ok_or("the NPY header is truncated")?;
+    let data = rest.get(header_end..).unwrap_or_default();
+    let entries = Literal {
+        text: header,
+        pos: 0,
+    }
+    .dict()
+    .map_err(|e| format!("unreadable NPY header: {e}"))?;
+    let (mut descr, mut fortran, mut shape) = (None, None, None);
+    for (key, value) in entries {
+        match (key.as_str(), value) {
+            ("descr", PyValue::Str(s)) => descr = Some(s),
+            ("fortran_order", PyValue::Bool(b)) => fortran = Some(b),
+            ("shape", PyValue::Tuple(dims)) => shape = Some(dims),
+            (other, value) => {
+                return Err(format!("unexpected NPY header entry `{other}`: {value:?}"));
+            }
+        }
+    }
+    let (Some(descr), Some(fortran), Some(shape)) = (descr, fortran, shape) else {
+        return Err("the NPY header lacks `descr`, `fortran_order` or `shape`".into());
+    };
+    let (kind, size, big_endian) = dtype(&descr).ok_or_else(|| {
+        format!("dtype `{descr}` is not supported (expected float64/32, an integer type or bool)")
+    })?;
+    let elements = shape
+        .iter()
+        .try_fold(1usize, |n, &d| n.checked_mul(d))
+        .filter(|&n| n <= grid::MAX_GRID_POINTS)
+        .ok_or_else(|| {
+            format!(
+                "shape {shape:?} holds more than the {} elements allowed",
+                grid::MAX_GRID_POINTS
+            )
+        })?;
+    // `elements` ≤ 2^24 and `size` ≤ 8, so this cannot overflow.
+    let needed = elements * size;
+    if data.len() < needed {
+        return Err(format!(
+            "the data are truncated: {} bytes where shape {shape:?} of `{descr}` needs {needed}",
+            data.len()
+        ));
+    }
+    if data.len() > needed {
+        return Err(format!(
+            "{} bytes follow the data that shape {shape:?} of `{descr}` describes",
+            data.len() - needed
+        ));
+    }
+    let data = data
+        .chunks_exact(size)
+        .map(|chunk| decode(kind, size, big_endian, chunk))
+        .collect();
+    Ok(NpyArray {
+        descr,
+        kind,
+        shape,
+        fortran,
+        data,
+    })
+}
+
+/// The arrays an NPZ may hold besides the four shared roles.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Member {
+    Role(Role),
+    Mask,
+}
+
+impl Member {
+    fn of(name: &str) -> Option<Self> {
+        match name.trim().to_lowercase().as_str() {
+            "mask" | "present" => Some(Self::Mask),
+            _ => Role::of(name).map(Self::Role),
+        }
+    }
+
+    fn slot(self) -> usize {
+        match self {
+            Self::Role(Role::Offset) => 0,
+            Self::Role(Role::Time) => 1,
+            Self::Role(Role::Value) => 2,
+            Self::Role(Role::Error) => 3,
+            Self::Mask => 4,
+        }
+    }
+}
+
+/// A named array of an NPZ (or the bare NPY, named "array").
+#[derive(Debug)]
+struct Named {
+    name: String,
+    array: NpyArray,
+}
+
+/// Checks the offsets of a 1-D array: integral, in range, not repeated.
+fn offsets_from(values: &[f64], name: &str, problems: &mut Problems) -> Vec<Option<i32>> {
+    let mut out: Vec<Option<i32>> = values
+        .iter()
+        .enumerate()
+        .map(|(i, &v)| {
+            grid::offset_from_f64(v)
+                .map_err(|phrase| problems.lazy(None, || format!("`{name}[{i}]`: {v} {phrase}")))
+                .ok()
+        })
+        .collect();
+    for (later, first) in grid::repeats(out.iter().copied()) {
+        problems.general(format!(
+            "`{name}[{later}]` repeats the value of `{name}[{first}]`"
+        ));
+        if let Some(slot) = out.get_mut(later) {
+            *slot = None;
+        }
+    }
+    out
+}
+
+/// Checks the times of a 1-D array: finite, ≥ 0, not repeated.
+fn times_from(values: &[f64], name: &str, problems: &mut Problems) -> Vec<Option<f64>> {
+    let mut out: Vec<Option<f64>> = values
+        .iter()
+        .enumerate()
+        .map(|(i, &v)| {
+            grid::time_value(v)
+                .map_err(|phrase| problems.lazy(None, || format!("`{name}[{i}]`: {v} {phrase}")))
+                .ok()
+        })
+        .collect();
+    for (later, first) in grid::repeats(out.iter().map(|t| grid::time_repeat_key(*t))) {
+        problems.general(format!(
+            "`{name}[{later}]` repeats the value of `{name}[{first}]`"
+        ));
+        if let Some(slot) = out.get_mut(later) {
+            *slot = None;
+        }
+    }
+    out
+}
+
+/// Checks that `a` is a float matrix of `shape` (when known).
+fn check_matrix(a: &Named, shape: Option<(usize, usize)>, problems: &mut Problems) -> bool {
+    let mut ok = true;
+    if a.array.kind != Kind::Float {
+        problems.general(format!(
+            "array `{}` has dtype `{}`; expected float64 or float32",
+            a.name, a.array.descr
+        ));
+        ok = false;
+    }
+    match (a.array.dim2(), shape) {
+        (None, _) => {
+            problems.general(format!(
+                "array `{}` must be 2-D (times × sites), found shape {}",
+                a.name,
+                a.array.shape_text()
+            ));
+            ok = false;
+        }
+        (Some(got), Some(want)) if got != want => {
+            problems.general(format!(
+                "array `{}` has shape {} but the axes make {} times × {} sites{}",
+                a.name,
+                a.array.shape_text(),
+                want.0,
+                want.1,
+                transposed_hint(got, want)
+            ));
+            ok = false;
+        }
+        _ => {}
+    }
+    ok
+}
+
+/// Checks that `a` is a 1-D numeric axis; its values when it is.
+fn axis_values<'a>(a: &'a Named, what: &str, problems: &mut Problems) -> Option<&'a [f64]> {
+    if a.array.kind == Kind::Bool {
+        problems.general(format!(
+            "array `{}` ({what}) is boolean; expected numbers",
+            a.name
+        ));
+        return None;
+    }
+    if a.array.shape.len() != 1 {
+        problems.general(format!(
+            "array `{}` ({what}) must be 1-D, found shape {}",
+            a.name,
+            a.array.shape_text()
+        ));
+        return None;
+    }
+    if a.array.data.is_empty() {
+        problems.general(format!("array `{}` ({what}) is empty", a.name));
+        return None;
+    }
+    Some(&a.array.data)
+}
+
+/// The checked points of a dense map: C at every present grid point (all
+/// points without a mask), with its error when given.
+fn dense_points(
+    c: &Named,
+    err: Option<&Named>,
+    mask: Option<&Named>,
+    xs: &[Option<i32>],
+    ts: &[Option<f64>],
+    hint: &str,
+    problems: &mut Problems,
+) -> Vec<Point> {
+    let Some((n_t, n_x)) = c.array.dim2() else {
+        return Vec::new();
+    };
+    let mut points = Vec::new();
+    for i in 0..n_t {
+        for j in 0..n_x {
+            let present = mask.map_or(Some(true), |m| m.array.at2(i, j).map(|v| v != 0.0));
+            if present != Some(true) {
+                continue;
+            }
+            let Some(raw) = c.array.at2(i, j) else {
+                continue;
+            };
+            let value = grid::corr_value(raw).map_err(|phrase| {
+                problems.lazy(None, || {
+                    format!("`{}[{i}, {j}]`: {raw} {phrase}{hint}", c.name)
+                });
+            });
+            let error = match err {
+                None => Ok(None),
+                Some(e) => match e.array.at2(i, j) {
+                    None => Err(()),
+                    Some(raw) => grid::error_value(raw).map(Some).map_err(|phrase| {
+                        problems.lazy(None, || format!("`{}[{i}, {j}]`: {raw} {phrase}", e.name));
+                    }),
+                },
+            };
+            if let (Ok(c), Ok(err), Some(Some(x)), Some(Some(t))) =
+                (value, error, xs.get(j), ts.get(i))
+            {
+                points.push(Point {
+                    x: *x,
+                    t: *t,
+                    c,
+                    err,
+                });
+            }
+        }
+    }
+    points
+}
+
+/// A hint when a matrix has the axes' lengths the other way round.
+fn transposed_hint(got: (usize, usize), want: (usize, usize)) -> &'static str {
+    if got == (want.1, want.0) {
+        " (it looks transposed: store it as times × sites)"
+    } else {
+        ""
+    }
+}
+
+fn into_error(reason: String) -> IngestError {
+    let mut p = Problems::default();
+    p.general(reason);
+    p.into_error()
+}
+
+/// Parses an NPZ archive. See the module documentation.
+pub(super) fn parse_npz(bytes: &[u8]) -> Result<Ingested, IngestError> {
+    let mut problems = Problems::default();
+    let mut archive = zip::ZipArchive::new(Cursor::new(bytes))
+        .map_err(|e| into_error(format!("not a readable NPZ (zip) archive: {e}")))?;
+    let mut slots: [Option<Named>; 5] = [None, None, None, None, None];
+    let mut ignored = Vec::new();
+    for index in 0..archive.len() {
+        let mut entry = match archive.by_index(index) {
+            Ok(entry) => entry,
+            Err(e) => {
+                problems.general(format!("archive member {index} cannot be read: {e}"));
+                continue;
+            }
+        };
+        let name = entry.name().to_string();
+        let stem = name.strip_suffix(".npy").unwrap_or(&name).to_string();
+        let Some(member) = Member::of(&stem) else {
+            ignored.push(format!("`{stem}`"));
+            continue;
+        };
+        if entry.compression() != zip::CompressionMethod::Stored {
+            problems.general(format!(
+                "array `{stem}` is compressed ({}); only uncompressed archives are read: \
+                 save with numpy.savez, not numpy.savez_compressed",
+                entry.compression()
+            ));
+            continue;
+        }
+        let mut buf = Vec::new();
+        if let Err(e) = entry
+            .by_ref()
+            .take(MAX_MEMBER_BYTES + 1)
+            .read_to_end(&mut buf)
+        {
+            problems.general(format!(
+                "array `{stem}` cannot be read from the archive: {e}"
+            ));
+            continue;
+        }
+        if buf.len() as u64 > MAX_MEMBER_BYTES {
+            problems.general(format!(
+                "array `{stem}` is larger than the {} elements allowed",
+                grid::MAX_GRID_POINTS
+            ));
+            continue;
+        }
+        let array = match read_array(&buf) {
+            Ok(array) => array,
+            Err(reason) => {
+                problems.general(format!("array `{stem}`: {reason}"));
+                continue;
+            }
+        };
+        match slots.get_mut(member.slot()) {
+            Some(Some(first)) => problems.general(format!(
+                "arrays `{}` and `{stem}` play the same part; keep one",
+                first.name
+            )),
+            Some(slot) => *slot = Some(Named { name: stem, array }),
+            None => {}
+        }
+    }
+    let [x, t, c, err, mask] = slots;
+    let mut notes = Vec::new();
+    if !ignored.is_empty() {
+        notes.push(format!(
+            "ignored arrays not understood: {}",
+            ignored.join(", ")
+        ));
+    }
+    for (slot, what) in [
+        (x.is_none(), "`x` (site offsets)"),
+        (t.is_none(), "`t` (times)"),
+        (c.is_none(), "`C` (times × sites)"),
+    ] {
+        if slot {
+            problems.general(format!("the archive has no array {what}"));
+        }
+    }
+    let xs = x
+        .as_ref()
+        .and_then(|a| axis_values(a, "site offsets", &mut problems).map(|v| (a, v)))
+        .map(|(a, v)| offsets_from(v, &a.name, &mut problems));
+    let ts = t
+        .as_ref()
+        .and_then(|a| axis_values(a, "times", &mut problems).map(|v| (a, v)))
+        .map(|(a, v)| times_from(v, &a.name, &mut problems));
+    let want = xs
+        .as_ref()
+        .zip(ts.as_ref())
+        .map(|(xs, ts)| (ts.len(), xs.len()));
+    let mut points = Vec::new();
+    if let Some(c) = &c {
+        let mut ok = check_matrix(c, want, &mut problems);
+        let shape = c.array.dim2();
+        if let Some(e) = &err {
+            ok &= check_matrix(e, shape, &mut problems);
+        }
+        if let Some(m) = &mask {
+            if m.array.kind != Kind::Bool {
+                problems.general(format!(
+                    "array `{}` has dtype `{}`; the mask must be boolean (true = present)",
+                    m.name, m.array.descr
+                ));
+                ok = false;
+            }
+            if m.array.dim2().is_none() || m.array.dim2() != shape {
+                problems.general(format!(
+                    "array `{}` has shape {} but `{}` has {}",
+                    m.name,
+                    m.array.shape_text(),
+                    c.name,
+                    c.array.shape_text()
+                ));
+                ok = false;
+            }
+        }
+        if ok {
+            if let (Some(xs), Some(ts)) = (&xs, &ts) {
+                let hint = if mask.is_none() {
+                    " (mark missing points with a boolean `mask` array, true = present)"
+                } else {
+                    ""
+                };
+                points = dense_points(c, err.as_ref(), mask.as_ref(), xs, ts, hint, &mut problems);
+            }
+        }
+    }
+    problems.check()?;
+    let map = grid::assemble(&points, err.is_some(), &mut notes).map_err(into_error)?;
+    Ok(Ingested {
+        map,
+        meta: DatasetMeta::default(),
+        notes,
+    })
+}
+
+/// Parses a bare NPY array with axes from the request. See the module
+/// documentation.
+pub(super) fn parse_npy(bytes: &[u8], options: &IngestOptions) -> Result<Ingested, IngestError> {
+    let mut problems = Problems::default();
+    let array = read_array(bytes).map_err(|reason| problems.general(format!("NPY: {reason}")));
+    if options.x.is_none() {
+        problems.general(
+            "request parameter `x` is needed: a bare NPY array carries no site offsets \
+             (e.g. x=-5:5 or x=0,1,2)",
+        );
+    }
+    if options.t.is_none() {
+        problems.general(
+            "request parameter `t` is needed: a bare NPY array carries no times \
+             (e.g. t=0,0.5,1)",
+        );
+    }
+    let xs = options.x.as_ref().map(|x| {
+        let values: Vec<f64> = x.iter().copied().map(f64::from).collect();
+        offsets_from(&values, "request parameter x", &mut problems)
+    });
+    let ts = options
+        .t
+        .as_ref()
+        .map(|t| times_from(t, "request parameter t", &mut problems));
+    let mut points = Vec::new();
+    if let Ok(array) = array {
+        let named = Named {
+            name: "array".into(),
+            array,
+        };
+        let want = xs
+            .as_ref()
+            .zip(ts.as_ref())
+            .map(|(xs, ts)| (ts.len(), xs.len()));
+        if check_matrix(&named, want, &mut problems) {
+            if let (Some(xs), Some(ts)) = (&xs, &ts) {
+                let hint = " (a bare NPY array cannot mark missing points: send NPZ with a \
+                            `mask` array or JSON with null)";
+                points = dense_points(&named, None, None, xs, ts, hint, &mut problems);
+            }
+        }
+    }
+    problems.check()?;
+    let mut notes = Vec::new();
+    let map = grid::assemble(&points, false, &mut notes).map_err(into_error)?;
+    Ok(Ingested {
+        map,
+        meta: DatasetMeta::default(),
+        notes,
+    })
+}
+
+#[cfg(test)]
+mod tests {
+    //! Inputs are written in memory with ndarray-npy's writers (an
+    //! implementation independent of the reader above) or assembled byte by
+    //! byte from the format description in NumPy NEP 1; expected values are
+    //! the ones written.
+
+    use super::*;
+    use crate::ingest::testing::{cell, same};
+    use crate::ingest::{Format, Problem, parse, sniff};
+    use ndarray::{Array1, Array2, ShapeBuilder, array};
+    use ndarray_npy::{NpzWriter, WriteNpyExt};
+
+    type Writer = NpzWriter<Cursor<Vec<u8>>>;
+
+    fn npz(build: impl FnOnce(&mut Writer)) -> Vec<u8> {
+        let mut writer = NpzWriter::new(Cursor::new(Vec::new()));
+        build(&mut writer);
+        writer.finish().expect("in-memory archive").into_inner()
+    }
+
+    fn npy(array: &impl WriteNpyExt) -> Vec<u8> {
+        let mut buf = Vec::new();
+        array.write_npy(&mut buf).expect("in-memory npy");
+        buf
+    }
+
+    fn reasons(problems: &[Problem]) -> Vec<&str> {
+        problems.iter().map(|p| p.reason.as_str()).collect()
+    }
+
+    fn refuse_npz(bytes: &[u8]) -> Vec<Problem> {
+        match parse_npz(bytes) {
+            Ok(ingested) => panic!("expected refusal, got {:?}", ingested.map),
+            Err(e) => e.problems,
+        }
+    }
+
+    fn axes(x: Vec<i32>, t: Vec<f64>) -> IngestOptions {
+        IngestOptions {
+            x: Some(x),
+            t: Some(t),
+        }
+    }
+
+    #[test]
+    fn npz_with_errors_and_mask() {
+        let bytes = npz(|w| {
+            w.add_array("C", &array![[0.0, 1.0, f64::NAN], [0.25, 0.5, 0.25]])
+                .unwrap();
+            w.add_array("t", &array![0.0, 0.5]).unwrap();
+            w.add_array("x", &array![-1i64, 0, 1]).unwrap();
+            w.add_array("err", &array![[0.1, 0.1, f64::NAN], [0.3, 0.4, 0.2]])
+                .unwrap();
+            w.add_array("mask", &array![[true, true, false], [true, true, true]])
+                .unwrap();
+            w.add_array("notes", &array![1u8]).unwrap();
+        });
+        assert_eq!(sniff(&bytes), Some(Format::Npz));
+        let ok = parse(&bytes, Format::Npz, &IngestOptions::default()).expect("valid");
+        assert_eq!(ok.map.offsets(), &[-1, 0, 1]);
+        assert!(same(ok.map.times(), &[0.0, 0.5]));
+        assert!(cell(&ok.map, 0, 1, 1.0, Some(0.1)));
+        assert!(cell(&ok.map, 1, 2, 0.25, Some(0.2)));
+        assert_eq!(ok.map.get(0, 2), None);
+        assert!(
+            ok.notes
+                .iter()
+                .any(|n| n.starts_with("1 of 6 grid points missing"))
+        );
+        assert!(
+            ok.notes.iter().any(|n| n.contains("`notes`")),
+            "{:?}",
+            ok.notes
+        );
+    }
+
+    #[test]
+    fn npz_accepts_float_offsets_f32_values_and_integer_times() {
+        // 0.5 and 0.25 are exact in binary32, so the widening is exact.
+        let bytes = npz(|w| {
+            w.add_array("corr", &array![[0.5f32, 0.25]]).unwrap();
+            w.add_array("time", &array![2i32]).unwrap();
+            w.add_array("site", &array![3.0f64, 1.0]).unwrap();
+        });
+        let ok = parse_npz(&bytes).expect("valid");
+        assert_eq!(ok.map.offsets(), &[1, 3]);
+        assert!(cell(&ok.map, 0, 0, 0.25, None));
+        assert!(cell(&ok.map, 0, 1, 0.5, None));
+    }
+
+    #[test]
+    fn npz_value_problems_name_array_and_index() {
+        let bytes = npz(|w| {
+            w.add_array("C", &array![[1.0, 0.0, 0.0], [0.5, 0.25, f64::NAN]])
+                .unwrap();
+            w.add_array("t", &array![0.0, -0.5]).unwrap();
+            w.add_array("x", &array![0.0, 0.5, 2.0]).unwrap();
+            w.add_array("err", &array![[0.1, 0.0, 0.1], [0.1, 0.1, 0.1]])
+                .unwrap();
+        });
+        let problems = refuse_npz(&bytes);
+        assert!(problems.iter().all(|p| p.line.is_none()));
+        assert_eq!(
+            reasons(&problems),
+            vec![
+                "`x[1]`: 0.5 is not an integer site offset",
+                "`t[1]`: -0.5 is negative (times must be ≥ 0)",
+                "`err[0, 1]`: 0 is not positive (one-sigma errors must be > 0)",
+                "`C[1, 2]`: NaN is not a finite number (mark missing points with a boolean \
+                 `mask` array, true = present)",
+            ]
+        );
+    }
+
+    #[test]
+    fn npz_structure_problems() {
+        let missing = refuse_npz(&npz(|w| {
+            w.add_array("C", &array![[1.0]]).unwrap();
+            w.add_array("x", &array![0i64]).unwrap();
+        }));
+        assert_eq!(
+            reasons(&missing),
+            vec!["the archive has no array `t` (times)"]
+        );
+
+        let transposed = refuse_npz(&npz(|w| {
+            w.add_array("C", &Array2::<f64>::zeros((3, 2))).unwrap();
+            w.add_array("t", &array![0.0, 1.0]).unwrap();
+            w.add_array("x", &array![0i64, 1, 2]).unwrap();
+        }));
+        assert_eq!(
+            reasons(&transposed),
+            vec![
+                "array `C` has shape (3, 2) but the axes make 2 times × 3 sites (it looks \
+                 transposed: store it as times × sites)"
+            ]
+        );
+
+        let wrong_types = refuse_npz(&npz(|w| {
+            w.add_array("C", &array![[1i64, 0]]).unwrap();
+            w.add_array("t", &array![0.0]).unwrap();
+            w.add_array("x", &array![[0i64, 1]]).unwrap();
+            w.add_array("mask", &array![[1u8, 1]]).unwrap();
+        }));
+        assert_eq!(
+            reasons(&wrong_types),
+            vec![
+                "array `x` (site offsets) must be 1-D, found shape (1, 2)",
+                "array `C` has dtype `<i8`; expected float64 or float32",
+                "array `mask` has dtype `|u1`; the mask must be boolean (true = present)",
+            ]
+        );
+
+        let twice = refuse_npz(&npz(|w| {
+            w.add_array("C", &array![[1.0]]).unwrap();
+            w.add_array("Czz", &array![[1.0]]).unwrap();
+            w.add_array("t", &array![0.0]).unwrap();
+            w.add_array("x", &array![0i64]).unwrap();
+        }));
+        assert_eq!(
+            reasons(&twice),
+            vec!["arrays `C` and `Czz` play the same part; keep one"]
+        );
+
+        let not_zip = refuse_npz(b"PK\x03\x04 not really a zip");
+        assert!(
+            not_zip[0].reason.starts_with("not a readable NPZ"),
+            "{not_zip:?}"
+        );
+    }
+
+    #[test]
+    fn npy_uses_axes_from_the_request_in_either_memory_order() {
+        let c_order = array![[1.0, 0.0], [0.5, 0.5], [0.25, 0.75]];
+        let f_order = Array2::from_shape_vec((3, 2).f(), vec![1.0, 0.5, 0.25, 0.0, 0.5, 0.75])
+            .expect("shape");
+        assert!(!f_order.is_standard_layout());
+        for bytes in [npy(&c_order), npy(&f_order)] {
+            assert_eq!(sniff(&bytes), Some(Format::Npy));
+            let ok =
+                parse(&bytes, Format::Npy, &axes(vec![0, 1], vec![0.0, 1.0, 2.0])).expect("valid");
+            assert!(cell(&ok.map, 2, 1, 0.75, None));
+            assert!(cell(&ok.map, 1, 0, 0.5, None));
+            assert!(ok.notes.is_empty());
+        }
+    }
+
+    #[test]
+    fn npy_problems() {
+        let bytes = npy(&array![[1.0, f64::NAN]]);
+        let none = parse_npy(&bytes, &IngestOptions::default()).expect_err("no axes");
+        assert_eq!(none.problems.len(), 2);
+        assert!(
+            none.problems[0]
+                .reason
+                .starts_with("request parameter `x` is needed")
+        );
+        assert!(
+            none.problems[1]
+                .reason
+                .starts_with("request parameter `t` is needed")
+        );
+
+        let nan = parse_npy(&bytes, &axes(vec![0, 1], vec![0.0])).expect_err("NaN");
+        assert!(
+            nan.problems[0]
+                .reason
+                .starts_with("`array[0, 1]`: NaN is not a finite number")
+        );
+
+        let swapped = parse_npy(&bytes, &axes(vec![0], vec![0.0, 1.0])).expect_err("shape");
+        assert!(
+            swapped.problems[0].reason.contains("looks transposed"),
+            "{swapped:?}"
+        );
+
+        let flat =
+            parse_npy(&npy(&Array1::<f64>::zeros(3)), &axes(vec![0], vec![0.0])).expect_err("1-D");
+        assert!(flat.problems[0].reason.contains("must be 2-D"));
+
+        let bad_axes =
+            parse_npy(&npy(&array![[1.0, 0.0]]), &axes(vec![1, 1], vec![-1.0])).expect_err("axes");
+        assert_eq!(
+            reasons(&bad_axes.problems),
+            vec![
+                "`request parameter x[1]` repeats the value of `request parameter x[0]`",
+                "`request parameter t[0]`: -1 is negative (times must be ≥ 0)",
+            ]
+        );
+    }
+
+    /// An NPY image assembled by hand after NumPy NEP 1: magic, version,
+    /// little-endian header length (u16 for 1.0, u32 for 2.0), the header
+    /// dictionary padded with spaces and ended by a newline, then the data.
+    fn handmade(version: u8, header: &str, data: &[u8]) -> Vec<u8> {
+        let mut dict = header.to_string();
+        let prefix = if version == 1 { 10 } else { 12 };
+        while (prefix + dict.len() + 1) % 64 != 0 {
+            dict.push(' ');
+        }
+        dict.push('\n');
+        let mut out = b"\x93NUMPY".to_vec();
+        out.extend([version, 0]);
+        if version == 1 {
+            out.extend(u16::try_from(dict.len()).expect("short").to_le_bytes());
+        } else {
+            out.extend(u32::try_from(dict.len()).expect("short").to_le_bytes());
+        }
+        out.extend(dict.as_bytes());
+        out.extend(data);
+        out
+    }
+
+    #[test]
+    fn handmade_big_endian_and_version_2_files_are_read() {
+        let mut data = Vec::new();
+        data.extend(1.0f64.to_be_bytes());
+        data.extend(0.5f64.to_be_bytes());
+        let v1 = handmade(
+            1,
+            "{'descr': '>f8', 'fortran_order': False, 'shape': (1, 2), }",
+            &data,
+        );
+        let v2 = handmade(
+            2,
+            "{\"descr\": \">f8\", \"fortran_order\": False, \"shape\": (1L, 2L)}",
+            &data,
+        );
+        for bytes in [v1, v2] {
+            let ok = parse_npy(&bytes, &axes(vec![0, 1], vec![0.0])).expect("valid");
+            assert!(cell(&ok.map, 0, 0, 1.0, None));
+            assert!(cell(&ok.map, 0, 1, 0.5, None));
+        }
+    }
+
+    #[test]
+    fn forged_headers_are_refused_before_allocating() {
+        let header = |descr: &str, shape: &str| {
+            format!("{{'descr': '{descr}', 'fortran_order': False, 'shape': {shape}, }}")
+        };
+        let one = 1.0f64.to_le_bytes();
+        let cases: [(Vec<u8>, &str); 8] = [
+            (
+                handmade(1, &header("<f8", "(1099511627776, 1099511627776)"), &one),
+                "elements allowed",
+            ),
+            (
+                handmade(1, &header("<f8", "(4096, 4096)"), &one),
+                "the data are truncated",
+            ),
+            (
+                handmade(1, &header("<f8", "(1, 1)"), &[one, one].concat()),
+                "8 bytes follow the data",
+            ),
+            (
+                handmade(1, &header("<c16", "(1, 1)"), &one),
+                "dtype `<c16` is not supported",
+            ),
+            (
+                handmade(1, &header("|O", "(1, 1)"), &one),
+                "dtype `|O` is not supported",
+            ),
+            (
+                handmade(
+                    1,
+                    "{'descr': [('a', '<f8')], 'fortran_order': False, 'shape': (1,)}",
+                    &one,
+                ),
+                "structured dtypes",
+            ),
+            (
+                b"\x93NUMPY\x02\x00\xff\xff\xff\xff{".to_vec(),
+                "header is truncated",
+            ),
+            (
+                b"\x93NUMPY\x09\x00".to_vec(),
+                "version 9.0 is not supported",
+            ),
+        ];
+        for (bytes, expected) in cases {
+            let err = parse_npy(&bytes, &axes(vec![0], vec![0.0])).expect_err(expected);
+            assert!(
+                err.problems[0].reason.contains(expected),
+                "{expected}: {err:?}"
+            );
+        }
+    }
+
+    #[test]
+    fn damaged_input_never_panics() {
+        let good_npy = npy(&array![[1.0, 0.5]]);
+        let good_npz = npz(|w| {
+            w.add_array("C", &array![[1.0, 0.5]]).unwrap();
+            w.add_array("t", &array![0.0]).unwrap();
+            w.add_array("x", &array![0i64, 1]).unwrap();
+        });
+        let options = axes(vec![0, 1], vec![0.0]);
+        for (good, format) in [(&good_npy, Format::Npy), (&good_npz, Format::Npz)] {
+            for end in 0..good.len() {
+                assert!(parse(&good[..end], format, &options).is_err());
+            }
+            for at in 0..good.len() {
+                for byte in [0x00, 0xFF, 0x7F, b'(', b')', b'\'', b'9', b','] {
+                    let mut bad = good.clone();
+                    bad[at] = byte;
+                    if let Err(e) = parse(&bad, format, &options) {
+                        assert!(!e.problems.is_empty() && e.problems.len() <= 100);
+                    }
+                }
+            }
+        }
+    }
+}

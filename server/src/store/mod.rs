@@ -1,0 +1,453 @@
+//! Store: the only code that knows the database (SQLite through rusqlite,
+//! bundled). Owns the schema, its numbered migrations and the encoding of
+//! maps as rows. Knows no physics beyond `CorrelationMap`'s accessors, and no
+//! HTTP.
+//!
+//! Invariant: every write is one transaction; the database runs in
+//! write-ahead-log mode with `synchronous = FULL`, so an acknowledged write
+//! survives a kill of the process at any moment.
+
+use std::path::Path;
+use std::sync::Mutex;
+
+use ndarray::Array2;
+use rusqlite::{Connection, OptionalExtension, params};
+use spreadscope_physics::CorrelationMap;
+
+use crate::dataset::DatasetMeta;
+
+/// Numbered migrations, applied in order; `PRAGMA user_version` records how
+/// many have run. Never edit a released migration: add a new one.
+const MIGRATIONS: &[&str] = &[include_str!("migrations/0001_init.sql")];
+
+#[derive(Debug, thiserror::Error)]
+pub enum StoreError {
+    #[error("database error: {0}")]
+    Sqlite(#[from] rusqlite::Error),
+    #[error("stored data are corrupt: {0}")]
+    Corrupt(String),
+    #[error("database at {path}: {source}")]
+    Open {
+        path: String,
+        source: rusqlite::Error,
+    },
+}
+
+pub type StoreResult<T> = Result<T, StoreError>;
+
+/// A session row.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SessionRow {
+    pub id: i64,
+    pub name: String,
+    pub edit_token: String,
+    pub view_token: String,
+    pub created_at: String,
+}
+
+/// A dataset ready to be written.
+#[derive(Debug, Clone)]
+pub struct NewDataset<'a> {
+    pub session_id: i64,
+    pub name: &'a str,
+    pub format: &'a str,
+    pub content_hash: &'a str,
+    pub created_at: &'a str,
+    pub meta: &'a DatasetMeta,
+    pub notes: &'a [String],
+    pub map: &'a CorrelationMap,
+}
+
+/// A stored dataset's descriptive columns (without the map).
+#[derive(Debug, Clone, PartialEq)]
+pub struct DatasetRow {
+    pub id: i64,
+    pub session_id: i64,
+    pub name: String,
+    pub format: String,
+    pub content_hash: String,
+    pub created_at: String,
+    pub meta: DatasetMeta,
+    pub notes: Vec<String>,
+}
+
+/// The single owner of the database connection.
+#[derive(Debug)]
+pub struct Store {
+    conn: Mutex<Connection>,
+}
+
+impl Store {
+    /// Opens (creating if needed) the database file `spreadscope.sqlite3`
+    /// in `dir` and runs pending migrations.
+    ///
+    /// # Errors
+    /// The directory or file cannot be opened, or a migration fails.
+    pub fn open_dir(dir: &Path) -> StoreResult<Self> {
+        let path = dir.join("spreadscope.sqlite3");
+        let conn = Connection::open(&path).map_err(|source| StoreError::Open {
+            path: path.display().to_string(),
+            source,
+        })?;
+        Self::init(conn)
+    }
+
+    /// An in-memory database, for tests.
+    ///
+    /// # Errors
+    /// A migration fails.
+    pub fn in_memory() -> StoreResult<Self> {
+        Self::init(Connection::open_in_memory()?)
+    }
+
+    fn init(mut conn: Connection) -> StoreResult<Self> {
+        conn.pragma_update(None, "journal_mode", "WAL")?;
+        conn.pragma_update(None, "synchronous", "FULL")?;
+        conn.pragma_update(None, "foreign_keys", "ON")?;
+        conn.busy_timeout(std::time::Duration::from_secs(5))?;
+        let done: i64 = conn.pragma_query_value(None, "user_version", |r| r.get(0))?;
+        let done = usize::try_from(done).unwrap_or(0);
+        for (index, sql) in MIGRATIONS.iter().enumerate().skip(done) {
+            let tx = conn.transaction()?;
+            tx.execute_batch(sql)?;
+            tx.pragma_update(None, "user_version", index as i64 + 1)?;
+            tx.commit()?;
+        }
+        Ok(Self {
+            conn: Mutex::new(conn),
+        })
+    }
+
+    fn lock(&self) -> std::sync::MutexGuard<'_, Connection> {
+        // A panic while holding the lock cannot leave SQLite inconsistent
+        // (transactions roll back on drop), so a poisoned lock is usable.
+        self.conn
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner)
+    }
+
+    /// Number of migrations applied.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn schema_version(&self) -> StoreResult<i64> {
+        Ok(self
+            .lock()
+            .pragma_query_value(None, "user_version", |r| r.get(0))?)
+    }
+
+    /// SQLite's own integrity check; `Ok(true)` when it answers "ok".
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn integrity_ok(&self) -> StoreResult<bool> {
+        let answer: String = self
+            .lock()
+            .query_row("PRAGMA integrity_check", [], |r| r.get(0))?;
+        Ok(answer == "ok")
+    }
+
+    /// # Errors
+    /// Database failure (including a token collision, which at 128 random
+    /// bits does not happen in practice).
+    pub fn create_session(
+        &self,
+        name: &str,
+        edit_token: &str,
+        view_token: &str,
+        created_at: &str,
+    ) -> StoreResult<SessionRow> {
+        let conn = self.lock();
+        conn.execute(
+            "INSERT INTO sessions (name, edit_token, view_token, created_at) VALUES (?1, ?2, ?3, ?4)",
+            params![name, edit_token, view_token, created_at],
+        )?;
+        Ok(SessionRow {
+            id: conn.last_insert_rowid(),
+            name: name.into(),
+            edit_token: edit_token.into(),
+            view_token: view_token.into(),
+            created_at: created_at.into(),
+        })
+    }
+
+    /// All sessions, oldest first.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn sessions(&self) -> StoreResult<Vec<SessionRow>> {
+        let conn = self.lock();
+        let mut stmt = conn.prepare(
+            "SELECT id, name, edit_token, view_token, created_at FROM sessions ORDER BY id",
+        )?;
+        let rows = stmt.query_map([], session_from_row)?;
+        Ok(rows.collect::<Result<_, _>>()?)
+    }
+
+    /// The session holding `token` as its edit or view token, with `true`
+    /// when it is the edit token. The caller compares tokens in constant time
+    /// afterwards; the index lookup only narrows the candidates.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn session_by_token(&self, token: &str) -> StoreResult<Option<SessionRow>> {
+        let conn = self.lock();
+        Ok(conn
+            .query_row(
+                "SELECT id, name, edit_token, view_token, created_at FROM sessions
+                 WHERE edit_token = ?1 OR view_token = ?1",
+                params![token],
+                session_from_row,
+            )
+            .optional()?)
+    }
+
+    /// Writes a dataset in one transaction and returns its id.
+    ///
+    /// # Errors
+    /// Database failure; nothing is written then.
+    pub fn insert_dataset(&self, d: &NewDataset<'_>) -> StoreResult<i64> {
+        let map = d.map;
+        let meta = serde_json::to_string(d.meta).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+        let notes =
+            serde_json::to_string(d.notes).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+        let offsets =
+            serde_json::to_string(map.offsets()).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+        let times =
+            serde_json::to_string(map.times()).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+        let values = f64_blob(map.values());
+        let errors = map.errors().map(f64_blob);
+        let mask: Vec<u8> = map.present().iter().map(|&p| u8::from(p)).collect();
+        let mut conn = self.lock();
+        let tx = conn.transaction()?;
+        tx.execute(
+            "INSERT INTO datasets (session_id, name, format, content_hash, created_at, meta_json,
+                 notes_json, offsets_json, times_json, values_blob, errors_blob, mask_blob)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
+            params![
+                d.session_id,
+                d.name,
+                d.format,
+                d.content_hash,
+                d.created_at,
+                meta,
+                notes,
+                offsets,
+                times,
+                values,
+                errors,
+                mask
+            ],
+        )?;
+        let id = tx.last_insert_rowid();
+        tx.commit()?;
+        Ok(id)
+    }
+
+    /// The datasets of a session, oldest first.
+    ///
+    /// # Errors
+    /// Database failure or corrupt rows.
+    pub fn datasets(&self, session_id: i64) -> StoreResult<Vec<(DatasetRow, CorrelationMap)>> {
+        let conn = self.lock();
+        let mut stmt = conn.prepare(&format!(
+            "{DATASET_SELECT} WHERE session_id = ?1 ORDER BY id"
+        ))?;
+        let rows = stmt.query_map(params![session_id], raw_dataset_from_row)?;
+        rows.map(|r| r.map_err(StoreError::from).and_then(decode_dataset))
+            .collect()
+    }
+
+    /// One dataset of a session.
+    ///
+    /// # Errors
+    /// Database failure or a corrupt row.
+    pub fn dataset(
+        &self,
+        session_id: i64,
+        id: i64,
+    ) -> StoreResult<Option<(DatasetRow, CorrelationMap)>> {
+        let conn = self.lock();
+        let raw = conn
+            .query_row(
+                &format!("{DATASET_SELECT} WHERE session_id = ?1 AND id = ?2"),
+                params![session_id, id],
+                raw_dataset_from_row,
+            )
+            .optional()?;
+        raw.map(decode_dataset).transpose()
+    }
+
+    /// Replaces a dataset's metadata. Returns `false` if no such dataset.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn update_meta(&self, session_id: i64, id: i64, meta: &DatasetMeta) -> StoreResult<bool> {
+        let json = serde_json::to_string(meta).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+        let changed = self.lock().execute(
+            "UPDATE datasets SET meta_json = ?1 WHERE session_id = ?2 AND id = ?3",
+            params![json, session_id, id],
+        )?;
+        Ok(changed == 1)
+    }
+}
+
+const DATASET_SELECT: &str = "SELECT id, session_id, name, format, content_hash, created_at,
+    meta_json, notes_json, offsets_json, times_json, values_blob, errors_blob, mask_blob
+    FROM datasets";
+
+fn session_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<SessionRow> {
+    Ok(SessionRow {
+        id: r.get(0)?,
+        name: r.get(1)?,
+        edit_token: r.get(2)?,
+        view_token: r.get(3)?,
+        created_at: r.get(4)?,
+    })
+}
+
+struct RawDataset {
+    id: i64,
+    session_id: i64,
+    name: String,
+    format: String,
+    content_hash: String,
+    created_at: String,
+    meta: String,
+    notes: String,
+    offsets: String,
+    times: String,
+    values: Vec<u8>,
+    errors: Option<Vec<u8>>,
+    mask: Vec<u8>,
+}
+
+fn raw_dataset_from_row(r: &rusqlite::Row<'_>) -> rusqlite::Result<RawDataset> {
+    Ok(RawDataset {
+        id: r.get(0)?,
+        session_id: r.get(1)?,
+        name: r.get(2)?,
+        format: r.get(3)?,
+        content_hash: r.get(4)?,
+        created_at: r.get(5)?,
+        meta: r.get(6)?,
+        notes: r.get(7)?,
+        offsets: r.get(8)?,
+        times: r.get(9)?,
+        values: r.get(10)?,
+        errors: r.get(11)?,
+        mask: r.get(12)?,
+    })
+}
+
+fn decode_dataset(raw: RawDataset) -> StoreResult<(DatasetRow, CorrelationMap)> {
+    let corrupt = |what: &str, e: &dyn std::fmt::Display| {
+        StoreError::Corrupt(format!("dataset {}: {what}: {e}", raw.id))
+    };
+    let meta: DatasetMeta = serde_json::from_str(&raw.meta).map_err(|e| corrupt("meta", &e))?;
+    let notes: Vec<String> = serde_json::from_str(&raw.notes).map_err(|e| corrupt("notes", &e))?;
+    let offsets: Vec<i32> =
+        serde_json::from_str(&raw.offsets).map_err(|e| corrupt("offsets", &e))?;
+    let times: Vec<f64> = serde_json::from_str(&raw.times).map_err(|e| corrupt("times", &e))?;
+    let shape = (times.len(), offsets.len());
+    let values = blob_f64(&raw.values, shape).ok_or_else(|| corrupt("values", &"bad length"))?;
+    let errors = match &raw.errors {
+        Some(b) => Some(blob_f64(b, shape).ok_or_else(|| corrupt("errors", &"bad length"))?),
+        None => None,
+    };
+    let mask = Array2::from_shape_vec(shape, raw.mask.iter().map(|&b| b != 0).collect())
+        .map_err(|e| corrupt("mask", &e))?;
+    let map = CorrelationMap::new(offsets, times, values, errors, mask)
+        .map_err(|e| corrupt("map", &e))?;
+    Ok((
+        DatasetRow {
+            id: raw.id,
+            session_id: raw.session_id,
+            name: raw.name,
+            format: raw.format,
+            content_hash: raw.content_hash,
+            created_at: raw.created_at,
+            meta,
+            notes,
+        },
+        map,
+    ))
+}
+
+fn f64_blob(a: &Array2<f64>) -> Vec<u8> {
+    a.iter().flat_map(|v| v.to_le_bytes()).collect()
+}
+
+fn blob_f64(bytes: &[u8], shape: (usize, usize)) -> Option<Array2<f64>> {
+    if bytes.len() != shape.0 * shape.1 * 8 {
+        return None;
+    }
+    let values = bytes
+        .chunks_exact(8)
+        .map(|c| {
+            let mut b = [0u8; 8];
+            b.copy_from_slice(c);
+            f64::from_le_bytes(b)
+        })
+        .collect();
+    Array2::from_shape_vec(shape, values).ok()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use ndarray::array;
+
+    #[test]
+    fn dataset_round_trips_bit_for_bit() {
+        let store = Store::in_memory().expect("opens");
+        assert_eq!(
+            store.schema_version().expect("reads"),
+            MIGRATIONS.len() as i64
+        );
+        let s = store
+            .create_session("s", "edit", "view", "2026-01-01T00:00:00Z")
+            .expect("creates");
+        let map = CorrelationMap::new(
+            vec![-1, 0, 1],
+            vec![0.0, 0.1],
+            array![[0.0, 1.0, 0.0], [0.1, 0.8, 0.1 + 1e-17]],
+            Some(array![[1.0, 1.0, 1.0], [0.5, 0.25, 0.125]]),
+            array![[true, true, false], [true, true, true]],
+        )
+        .expect("valid");
+        let meta = DatasetMeta {
+            alpha: Some(1.2),
+            ..DatasetMeta::default()
+        };
+        let id = store
+            .insert_dataset(&NewDataset {
+                session_id: s.id,
+                name: "d",
+                format: "csv",
+                content_hash: "h",
+                created_at: "now",
+                meta: &meta,
+                notes: &["n".into()],
+                map: &map,
+            })
+            .expect("inserts");
+        let (row, back) = store.dataset(s.id, id).expect("reads").expect("exists");
+        assert_eq!(back, map);
+        assert_eq!(row.meta, meta);
+        assert!(store.dataset(s.id + 1, id).expect("reads").is_none());
+        assert!(store.integrity_ok().expect("checks"));
+    }
+
+    #[test]
+    fn tokens_find_their_session() {
+        let store = Store::in_memory().expect("opens");
+        store.create_session("a", "e1", "v1", "t").expect("creates");
+        let found = store
+            .session_by_token("v1")
+            .expect("reads")
+            .expect("exists");
+        assert_eq!(found.name, "a");
+        assert!(store.session_by_token("nope").expect("reads").is_none());
+    }
+}

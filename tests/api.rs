@@ -1,0 +1,254 @@
+//! The HTTP API through the router (no socket) and once over a real socket.
+
+use axum::http::{Method, StatusCode};
+use serde_json::Value;
+
+use crate::support::{SMALL_CSV, Server, app, new_session, send, send_json};
+
+#[tokio::test]
+async fn sessions_give_distinct_unguessable_tokens() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    assert_ne!(edit, view);
+    assert_eq!(edit.len(), 32, "128 bits as hex");
+    let (status, info) = send_json(&app.router, Method::GET, &format!("/api/s/{edit}"), "").await;
+    assert_eq!(status, StatusCode::OK);
+    assert_eq!(info["can_edit"], true);
+    let (_, info) = send_json(&app.router, Method::GET, &format!("/api/s/{view}"), "").await;
+    assert_eq!(info["can_edit"], false);
+    assert_eq!(
+        info["edit_url"],
+        Value::Null,
+        "a view link never reveals the edit link"
+    );
+}
+
+#[tokio::test]
+async fn unknown_tokens_are_404_and_reveal_nothing() {
+    let app = app().await;
+    for uri in [
+        "/api/s/00000000000000000000000000000000/datasets",
+        "/api/s/nonsense",
+        "/api/s/../../etc/passwd",
+        "/s/00000000000000000000000000000000",
+        "/assets/xyz/../../Cargo.toml",
+        "/api/nothing-here",
+    ] {
+        let (status, body, _) = send(&app.router, Method::GET, uri, "").await;
+        assert_eq!(status, StatusCode::NOT_FOUND, "{uri}");
+        let text = String::from_utf8_lossy(&body);
+        assert!(!text.contains("[package]"), "{uri} leaked a file");
+    }
+}
+
+#[tokio::test]
+async fn upload_lists_and_reads_back_a_csv() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let uri = format!("/api/s/{edit}/datasets?name=small.csv&format=csv");
+    let (status, summary) = send_json(&app.router, Method::POST, &uri, SMALL_CSV).await;
+    assert_eq!(status, StatusCode::CREATED, "{summary}");
+    assert_eq!(summary["sites"], 3);
+    assert_eq!(summary["times"], 2);
+    assert_eq!(summary["content_hash"].as_str().map(str::len), Some(64));
+    let id = summary["id"].as_i64().expect("id");
+
+    let (_, list) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/datasets"),
+        "",
+    )
+    .await;
+    assert_eq!(list.as_array().map(Vec::len), Some(1));
+
+    let (status, detail) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/datasets/{id}"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK);
+    assert_eq!(detail["x"], serde_json::json!([-1, 0, 1]));
+    // Σ_x C at t = 1 is 0.3 + 0.4 + 0.3 (the file's own numbers).
+    let sum = detail["sum_rule"][1]["sum"].as_f64().expect("sum");
+    assert!((sum - 1.0).abs() < 1e-12);
+    assert_eq!(detail["autocorrelation"][0]["C"], 0.6);
+}
+
+#[tokio::test]
+async fn a_view_link_cannot_write() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let uri = format!("/api/s/{view}/datasets?name=a.csv&format=csv");
+    let (status, body) = send_json(&app.router, Method::POST, &uri, SMALL_CSV).await;
+    assert_eq!(status, StatusCode::FORBIDDEN, "{body}");
+    let (_, list) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{edit}/datasets"),
+        "",
+    )
+    .await;
+    assert_eq!(list.as_array().map(Vec::len), Some(0), "nothing stored");
+}
+
+#[tokio::test]
+async fn a_bad_csv_is_refused_with_every_line_and_nothing_stored() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let bad = "x,t,C,err\n0,0,1,0.1\n1,0,nan,0.1\n-1,0,0.1,-0.2\n0,0,0.9,0.1\n";
+    let uri = format!("/api/s/{edit}/datasets?name=bad.csv&format=csv");
+    let (status, body) = send_json(&app.router, Method::POST, &uri, bad).await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{body}");
+    let lines: Vec<i64> = body["problems"]
+        .as_array()
+        .expect("problems")
+        .iter()
+        .filter_map(|p| p["line"].as_i64())
+        .collect();
+    for line in [3, 4, 5] {
+        assert!(lines.contains(&line), "line {line} named in {body}");
+    }
+    let (_, list) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{edit}/datasets"),
+        "",
+    )
+    .await;
+    assert_eq!(list.as_array().map(Vec::len), Some(0), "nothing stored");
+}
+
+#[tokio::test]
+async fn metadata_edits_are_validated_and_kept() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let uri = format!("/api/s/{edit}/datasets?name=m.csv");
+    let (_, summary) = send_json(&app.router, Method::POST, &uri, SMALL_CSV).await;
+    let id = summary["id"].as_i64().expect("id");
+    let meta_uri = format!("/api/s/{edit}/datasets/{id}/meta");
+    let good = r#"{"platform":"ion chain","alpha":1.1,"chain_length":21,"source_site":10,"time_unit":"1/J"}"#;
+    let (status, updated) = send_json(&app.router, Method::PUT, &meta_uri, good).await;
+    assert_eq!(status, StatusCode::OK, "{updated}");
+    assert_eq!(updated["meta"]["alpha"], 1.1);
+    let bad = r#"{"chain_length":5,"source_site":9}"#;
+    let (status, err) = send_json(&app.router, Method::PUT, &meta_uri, bad).await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
+    assert!(
+        err["error"]
+            .as_str()
+            .expect("message")
+            .contains("source_site")
+    );
+    let view_uri = format!("/api/s/{view}/datasets/{id}/meta");
+    let (status, _) = send_json(&app.router, Method::PUT, &view_uri, good).await;
+    assert_eq!(status, StatusCode::FORBIDDEN);
+}
+
+#[tokio::test]
+async fn pages_carry_security_headers_and_content_addressed_assets() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let (status, body, headers) = send(&app.router, Method::GET, &format!("/s/{edit}"), "").await;
+    assert_eq!(status, StatusCode::OK);
+    let csp = headers["content-security-policy"].to_str().expect("ascii");
+    assert!(csp.contains("script-src 'self'") && !csp.contains("unsafe-eval"));
+    assert_eq!(headers["x-content-type-options"], "nosniff");
+    assert_eq!(headers["x-frame-options"], "DENY");
+    let html = String::from_utf8(body).expect("utf-8");
+    assert!(!html.contains("%ASSETS%"));
+    let prefix = spreadscope::api::assets::prefix();
+    assert!(html.contains(&prefix));
+    let (status, _, headers) = send(
+        &app.router,
+        Method::GET,
+        &format!("{prefix}/index.html"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK);
+    assert!(
+        headers["cache-control"]
+            .to_str()
+            .expect("ascii")
+            .contains("immutable")
+    );
+}
+
+#[tokio::test]
+async fn uploads_over_the_limit_get_413() {
+    let config = spreadscope::api::ApiConfig {
+        max_upload_bytes: 1024,
+    };
+    let app = crate::support::app_with(&config).await;
+    let (edit, _) = new_session(&app.router).await;
+    let big = format!("x,t,C\n{}", "0,0,1\n".repeat(1000));
+    let uri = format!("/api/s/{edit}/datasets?name=big.csv");
+    let (status, _, _) = send(&app.router, Method::POST, &uri, big).await;
+    assert_eq!(status, StatusCode::PAYLOAD_TOO_LARGE);
+}
+
+#[tokio::test]
+async fn a_fresh_store_opens_with_the_synthetic_demo_session() {
+    let app = app().await;
+    let sessions = app.service.sessions().await.expect("sessions");
+    assert_eq!(sessions.len(), 1);
+    let token = &sessions[0].view_token;
+    let (_, list) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{token}/datasets"),
+        "",
+    )
+    .await;
+    let list = list.as_array().expect("list");
+    assert!(!list.is_empty());
+    assert!(list.iter().all(|d| d["meta"]["synthetic"] == true));
+}
+
+/// Over a real socket: the binary starts on port 0, prints its links,
+/// datasets survive a restart, and SIGTERM ends it cleanly.
+#[test]
+fn the_binary_serves_and_datasets_survive_a_restart() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let server = Server::start(dir.path());
+    let (edit_url, view_url) = server.links[0].clone();
+    let edit = edit_url.rsplit('/').next().expect("token").to_string();
+    let upload = format!("{}/api/s/{edit}/datasets?name=kept.csv", server.base);
+    let out = std::process::Command::new("curl")
+        .args([
+            "-s",
+            "-o",
+            "/dev/null",
+            "-w",
+            "%{http_code}",
+            "--data-binary",
+            crate::support::SMALL_CSV,
+            &upload,
+        ])
+        .output()
+        .expect("curl runs");
+    assert_eq!(String::from_utf8_lossy(&out.stdout), "201");
+    assert!(server.stop().success(), "graceful exit on SIGTERM");
+
+    let again = Server::start(dir.path());
+    assert_eq!(again.links.len(), 1, "no second demo session on restart");
+    let view = view_url.rsplit('/').next().expect("token");
+    assert!(
+        again.links[0].1.ends_with(view),
+        "same session after restart"
+    );
+    let list = std::process::Command::new("curl")
+        .args(["-s", &format!("{}/api/s/{view}/datasets", again.base)])
+        .output()
+        .expect("curl runs");
+    let list: Value = serde_json::from_slice(&list.stdout).expect("json");
+    assert!(
+        list.as_array()
+            .expect("array")
+            .iter()
+            .any(|d| d["name"] == "kept.csv")
+    );
+}

@@ -1,0 +1,146 @@
+//! Shared harness: an app over an in-memory store driven through the router
+//! without a socket, and the real binary on port 0 for socket-level tests.
+
+use std::io::{BufRead, BufReader};
+use std::path::{Path, PathBuf};
+use std::process::{Child, Command, Stdio};
+
+use axum::Router;
+use axum::body::Body;
+use axum::http::{Method, Request, StatusCode};
+use http_body_util::BodyExt;
+use serde_json::Value;
+use spreadscope::api::ApiConfig;
+use spreadscope::app::App;
+use spreadscope::store::Store;
+use tower::ServiceExt;
+
+/// Path of a file in the repository.
+pub fn repo_path(rel: &str) -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
+}
+
+/// An app over a fresh in-memory database (with the demo session).
+pub async fn app() -> App {
+    app_with(&ApiConfig::default()).await
+}
+
+pub async fn app_with(config: &ApiConfig) -> App {
+    App::with_store(Store::in_memory().expect("in-memory store"), config)
+        .await
+        .expect("app builds")
+}
+
+/// Sends one request through the router; returns status and body bytes.
+pub async fn send(
+    router: &Router,
+    method: Method,
+    uri: &str,
+    body: impl Into<Body>,
+) -> (StatusCode, Vec<u8>, axum::http::HeaderMap) {
+    let request = Request::builder()
+        .method(method)
+        .uri(uri)
+        .body(body.into())
+        .expect("request builds");
+    let response = router
+        .clone()
+        .oneshot(request)
+        .await
+        .expect("router answers");
+    let status = response.status();
+    let headers = response.headers().clone();
+    let bytes = response
+        .into_body()
+        .collect()
+        .await
+        .expect("body reads")
+        .to_bytes()
+        .to_vec();
+    (status, bytes, headers)
+}
+
+/// Like [`send`], parsing the body as JSON.
+pub async fn send_json(
+    router: &Router,
+    method: Method,
+    uri: &str,
+    body: impl Into<Body>,
+) -> (StatusCode, Value) {
+    let (status, bytes, _) = send(router, method, uri, body).await;
+    let value = serde_json::from_slice(&bytes)
+        .unwrap_or_else(|_| Value::String(String::from_utf8_lossy(&bytes).into_owned()));
+    (status, value)
+}
+
+/// Creates a session; returns (edit token, view token).
+pub async fn new_session(router: &Router) -> (String, String) {
+    let (status, body) = send_json(router, Method::POST, "/api/sessions", "{\"name\":\"t\"}").await;
+    assert_eq!(status, StatusCode::CREATED, "{body}");
+    (
+        body["edit_token"].as_str().expect("edit token").to_string(),
+        body["view_token"].as_str().expect("view token").to_string(),
+    )
+}
+
+/// The real binary serving a data directory on a free loopback port.
+pub struct Server {
+    pub child: Child,
+    pub base: String,
+    /// (edit URL, view URL) per session, as printed.
+    pub links: Vec<(String, String)>,
+}
+
+impl Server {
+    pub fn start(data: &Path) -> Self {
+        let mut child = Command::new(env!("CARGO_BIN_EXE_spreadscope"))
+            .args(["serve", "--port", "0", "--data"])
+            .arg(data)
+            .stdout(Stdio::piped())
+            .stderr(Stdio::inherit())
+            .spawn()
+            .expect("binary starts");
+        let stdout = child.stdout.take().expect("stdout piped");
+        let mut lines = BufReader::new(stdout).lines();
+        let first = lines.next().expect("a line").expect("utf-8");
+        let base = first
+            .split_whitespace()
+            .find(|w| w.starts_with("http://"))
+            .expect("serving line names the URL")
+            .to_string();
+        let mut links = Vec::new();
+        let mut edit = None;
+        for line in lines.by_ref() {
+            let line = line.expect("utf-8");
+            let url = line.split_whitespace().last().unwrap_or("").to_string();
+            if line.trim_start().starts_with("edit:") {
+                edit = Some(url);
+            } else if line.trim_start().starts_with("view:") {
+                links.push((edit.take().expect("edit before view"), url));
+                break;
+            }
+        }
+        // Keep draining stdout so the server never blocks on a full pipe.
+        std::thread::spawn(move || for _ in lines {});
+        Self { child, base, links }
+    }
+
+    /// Sends SIGTERM and waits for a graceful exit.
+    pub fn stop(mut self) -> std::process::ExitStatus {
+        let pid = self.child.id().to_string();
+        let _ = Command::new("kill").args(["-TERM", &pid]).status();
+        self.child.wait().expect("server exits")
+    }
+}
+
+impl Drop for Server {
+    fn drop(&mut self) {
+        let _ = self.child.kill();
+        let _ = self.child.wait();
+    }
+}
+
+/// A small valid long CSV: a Gaussian-ish spread on 5 sites at 3 times.
+pub const SMALL_CSV: &str = "x,t,C,err\n\
+-1,0.5,0.2,0.01\n0,0.5,0.6,0.01\n1,0.5,0.2,0.01\n\
+-1,1.0,0.3,0.01\n0,1.0,0.4,0.01\n1,1.0,0.3,0.01\n";

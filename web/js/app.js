@@ -1,0 +1,230 @@
+// Entry point of the dashboard page `/s/{token}`. Owns the page's state (the
+// session, the dataset list, which dataset is chosen) and wires the other
+// modules together: api.js for the server, header.js, datasets.js,
+// metaform.js and views.js for the page. Live updates arrive as server-sent
+// events and refresh the list and the chosen dataset.
+
+import { ApiError, SessionApi, tokenFromLocation } from "./api.js";
+import { byId, h } from "./dom.js";
+import { couplingLabel, renderDatasetList, wireUpload } from "./datasets.js";
+import { renderSession, setLiveState, wireCopyButtons } from "./header.js";
+import { fillMetaForm, wireMetaForm } from "./metaform.js";
+import { formatNumber, plottingAvailable } from "./plot.js";
+import { showDataset, showNothing, wireViews } from "./views.js";
+
+/** @typedef {import("./api.js").DatasetSummary} DatasetSummary */
+/** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
+
+const app = {
+  /** @type {SessionApi | null} */
+  api: null,
+  canEdit: false,
+  /** @type {DatasetSummary[]} */
+  datasets: [],
+  /** @type {string | null} */
+  selectedId: null,
+  /** Counts detail requests so that a slow, stale answer never overwrites a newer one. */
+  loadSeq: 0,
+};
+
+/**
+ * Shows a message that stops the page from working, in plain words.
+ * @param {string} message
+ */
+function fatal(message) {
+  const box = byId("fatal", HTMLElement);
+  box.textContent = message;
+  box.hidden = false;
+}
+
+/**
+ * @param {unknown} e
+ * @returns {string}
+ */
+function describe(e) {
+  return e instanceof Error ? e.message : String(e);
+}
+
+/** The dataset named in the address (`#dataset=ID`), if any. */
+function idFromHash() {
+  const params = new URLSearchParams(window.location.hash.replace(/^#/, ""));
+  return params.get("dataset");
+}
+
+/**
+ * Puts the chosen dataset in the address so a copied link opens on it.
+ * @param {string} id
+ */
+function writeHash(id) {
+  const url = new URL(window.location.href);
+  url.hash = new URLSearchParams({ dataset: id }).toString();
+  window.history.replaceState(null, "", url);
+}
+
+/**
+ * Renders term–value pairs into a description list.
+ * @param {string} id the list's element id
+ * @param {Array<[string, string, string?]>} rows term, value, optional tooltip
+ */
+function renderPairs(id, rows) {
+  byId(id, HTMLElement).replaceChildren(
+    ...rows.map(([term, value, title]) =>
+      h("div", { class: "fact" }, [h("dt", {}, [term]), h("dd", title ? { title } : {}, [value])]),
+    ),
+  );
+}
+
+/**
+ * Shows what the server says about the chosen dataset: the few facts needed
+ * to read the plots in the title row, provenance and metadata folded below.
+ * @param {DatasetDetail} d
+ */
+function renderFacts(d) {
+  byId("dataset-title", HTMLElement).textContent = d.name;
+  const unit = d.meta.time_unit ? ` ${d.meta.time_unit}` : " (unit not set)";
+  renderPairs("dataset-facts", [
+    ["grid", `${d.sites} × ${d.times}`, `${d.sites} sites × ${d.times} times`],
+    ["x", `${d.x_range[0]} … ${d.x_range[1]}`, "sites"],
+    ["t", `${formatNumber(d.t_range[0])} … ${formatNumber(d.t_range[1])}${unit}`],
+    ["Σₓ C", `${formatNumber(d.sum_rule_range[0])} … ${formatNumber(d.sum_rule_range[1])}`, "range of the sum over sites; 1 when nothing is lost"],
+    ["errors", d.has_errors ? "yes" : "none"],
+    ["missing", d.missing === 0 ? "none" : String(d.missing)],
+  ]);
+  renderPairs("dataset-more-facts", [
+    ["Platform", d.meta.platform || "not set"],
+    ["Couplings", couplingLabel(d.meta)],
+    ["Chain", d.meta.chain_length === null ? "length not set" : `${d.meta.chain_length} sites`],
+    ["Source site", d.meta.source_site === null ? "averaged or not set" : `j = ${d.meta.source_site}`],
+    ["Origin", d.meta.synthetic ? "synthetic (model)" : "measured"],
+    ["File format", d.format.toUpperCase()],
+    ["Content hash", d.content_hash.slice(0, 16) + "…", d.content_hash],
+    ["Added", d.created_at],
+  ]);
+  byId("dataset-notes", HTMLElement).replaceChildren(...d.notes.map((n) => h("li", {}, [n])));
+  const userNotes = byId("dataset-user-notes", HTMLElement);
+  userNotes.textContent = d.meta.notes ? `Notes: ${d.meta.notes}` : "";
+  userNotes.hidden = !d.meta.notes;
+}
+
+function renderList() {
+  renderDatasetList(app.datasets, app.selectedId, (id) => void select(id));
+}
+
+/**
+ * Chooses a dataset and loads its arrays.
+ * @param {string} id
+ */
+async function select(id) {
+  const api = app.api;
+  if (api === null) return;
+  const changed = app.selectedId !== id;
+  app.selectedId = id;
+  writeHash(id);
+  renderList();
+  byId("meta-panel", HTMLElement).hidden = !app.canEdit;
+  const seq = ++app.loadSeq;
+  try {
+    const detail = await api.dataset(id);
+    if (seq !== app.loadSeq) return;
+    renderFacts(detail);
+    if (app.canEdit) {
+      byId("meta-dataset-name", HTMLElement).textContent = `of “${detail.name}”`;
+      fillMetaForm(detail.meta, { force: changed });
+    }
+    showDataset(detail);
+  } catch (e) {
+    if (seq !== app.loadSeq) return;
+    byId("dataset-title", HTMLElement).textContent = `Could not load the dataset: ${describe(e)}`;
+  }
+}
+
+/** Reloads the dataset list and keeps (or makes) a selection. */
+async function refreshList() {
+  const api = app.api;
+  if (api === null) return;
+  try {
+    app.datasets = await api.datasets();
+  } catch (e) {
+    fatal(`Could not load the datasets: ${describe(e)}`);
+    return;
+  }
+  const ids = app.datasets.map((d) => String(d.id));
+  if (app.selectedId !== null && ids.includes(app.selectedId)) {
+    renderList();
+    return;
+  }
+  const wanted = idFromHash();
+  const first = wanted !== null && ids.includes(wanted) ? wanted : (ids[0] ?? null);
+  if (first === null) {
+    app.selectedId = null;
+    renderList();
+    byId("meta-panel", HTMLElement).hidden = true;
+    showNothing();
+    return;
+  }
+  await select(first);
+}
+
+/** Follows the session's event stream; EventSource reconnects by itself. */
+function followEvents() {
+  const api = app.api;
+  if (api === null || typeof EventSource === "undefined") return;
+  const source = new EventSource(api.eventsUrl());
+  source.addEventListener("open", () => setLiveState("live"));
+  source.addEventListener("error", () => setLiveState("reconnecting"));
+  source.addEventListener("message", (ev) => {
+    /** @type {import("./api.js").ServerEvent} */
+    let event;
+    try {
+      event = JSON.parse(ev.data);
+    } catch {
+      return;
+    }
+    if (event.kind === "dataset-added") {
+      void refreshList();
+    } else if (event.kind === "dataset-updated") {
+      void refreshList();
+      if (event.id !== undefined && String(event.id) === app.selectedId) void select(app.selectedId);
+    }
+  });
+}
+
+async function main() {
+  wireCopyButtons();
+  wireViews();
+  if (!plottingAvailable()) {
+    fatal("The plotting library did not load, so no plot can be drawn. Reload the page; if it persists, the server's assets are incomplete.");
+  }
+  const token = tokenFromLocation(window.location);
+  const api = new SessionApi(token);
+  app.api = api;
+  try {
+    const session = await api.session();
+    renderSession(session);
+    app.canEdit = session.can_edit;
+  } catch (e) {
+    byId("session-name", HTMLElement).textContent = "Session not available";
+    if (e instanceof ApiError && e.status === 404) {
+      fatal("This link does not open any session on this server. Ask for a fresh link.");
+    } else {
+      fatal(`Could not load the session: ${describe(e)}`);
+    }
+    setLiveState("reconnecting");
+    return;
+  }
+  byId("upload-panel", HTMLElement).hidden = !app.canEdit;
+  document.body.dataset.access = app.canEdit ? "edit" : "view";
+  if (app.canEdit) {
+    wireUpload(api, (summary) => {
+      void refreshList().then(() => select(String(summary.id)));
+    });
+    wireMetaForm(api, () => app.selectedId, () => {
+      void refreshList();
+      if (app.selectedId !== null) void select(app.selectedId);
+    });
+  }
+  followEvents();
+  await refreshList();
+}
+
+void main();
