@@ -176,29 +176,75 @@ async function main() {
         if (size < 10000) throw new Error(`screenshot is only ${size} bytes`);
       });
 
-      await check(`upload of ${path.basename(args.upload)} appears in the dataset list`, async () => {
-        const before = await page.locator("#dataset-list li[data-dataset-id]").count();
+      // A second reader follows the session from the view link while the
+      // upload happens, to check that live updates reach open pages.
+      const follower = await context.newPage();
+      watchErrors(follower, editErrors);
+      const following = await check("a second reader on the view link is connected for live updates", async () => {
+        await follower.goto(args.viewUrl, { waitUntil: "domcontentloaded" });
+        await follower.locator("#dataset-list li[data-dataset-id]").first().waitFor();
+        await follower.waitForFunction(
+          () => document.querySelector("#live-status")?.getAttribute("data-state") === "live",
+        );
+      });
+
+      /** Id of the dataset the upload created, once the list shows it. @type {string | null} */
+      let newId = null;
+      const uploaded = await check(`upload of ${path.basename(args.upload)} appears in the dataset list`, async () => {
+        const before = await page.locator("#dataset-list li[data-dataset-id]").evaluateAll((items) =>
+          items.map((li) => li.getAttribute("data-dataset-id")),
+        );
         await page.setInputFiles("#upload-input", args.upload);
-        await page.waitForFunction(
+        const handle = await page.waitForFunction(
           ({ before, name }) => {
             const problems = document.querySelector("#problems");
-            if (problems && !problems.hasAttribute("hidden")) return true;
-            const items = Array.from(document.querySelectorAll("#dataset-list li[data-dataset-id]"));
-            return items.length > before && items.some((li) => li.querySelector(".ds-name")?.textContent === name);
+            if (problems && !problems.hasAttribute("hidden")) return "rejected";
+            const fresh = Array.from(document.querySelectorAll("#dataset-list li[data-dataset-id]")).find(
+              (li) => !before.includes(li.getAttribute("data-dataset-id")) && li.querySelector(".ds-name")?.textContent === name,
+            );
+            return fresh ? `id:${fresh.getAttribute("data-dataset-id")}` : false;
           },
           { before, name: uploadName },
         );
-        const problems = page.locator("#problems");
-        if (await problems.isVisible()) {
-          throw new Error(`the server rejected the file:\n${(await problems.innerText()).trim()}`);
+        const outcome = String(await handle.jsonValue());
+        if (outcome === "rejected") {
+          throw new Error(`the server rejected the file:\n${(await page.locator("#problems").innerText()).trim()}`);
         }
+        newId = outcome.slice(3);
         // The new dataset becomes the chosen one and its heatmap is drawn.
-        await page.waitForFunction(
-          (name) => document.querySelector("#dataset-title")?.textContent === name,
-          uploadName,
-        );
+        await page.locator(`#dataset-list li.is-selected[data-dataset-id="${newId}"]`).waitFor();
+        await page.waitForFunction((name) => document.querySelector("#dataset-title")?.textContent === name, uploadName);
         await waitForHeatmap(page, args.timeout);
       });
+
+      if (uploaded && newId !== null) {
+        const id = newId;
+        if (following) {
+          await check("the open view page shows the upload without reloading (live update)", async () => {
+            await follower.locator(`#dataset-list li[data-dataset-id="${id}"]`).waitFor();
+          });
+        }
+
+        await check("metadata of the upload can be edited and saved", async () => {
+          const platform = "e2e check platform";
+          await page.fill("#meta-platform", platform);
+          await page.fill("#meta-alpha", "1.25");
+          await page.click("#meta-save");
+          await page.waitForFunction(() => {
+            const kind = document.querySelector("#meta-status")?.getAttribute("data-kind");
+            return kind === "ok" || kind === "error";
+          });
+          const status = ((await page.locator("#meta-status").textContent()) ?? "").trim();
+          if (status !== "Saved.") throw new Error(`the form says "${status}"`);
+          const item = page.locator(`#dataset-list li[data-dataset-id="${id}"]`);
+          await item.filter({ hasText: platform }).filter({ hasText: "α = 1.25" }).waitFor();
+          // The other reader sees the change too.
+          if (following) {
+            await follower.locator(`#dataset-list li[data-dataset-id="${id}"]`).filter({ hasText: platform }).waitFor();
+          }
+        });
+      }
+      await follower.close();
 
       await check("no script errors or blocked resources on the edit page", async () => {
         if (editErrors.length > 0) throw new Error(editErrors.join("\n"));

@@ -25,6 +25,7 @@ use tower_http::set_header::SetResponseHeaderLayer;
 
 use crate::dataset::DatasetMeta;
 use crate::ingest::{Format, IngestOptions};
+use crate::service::log::{self as pinned, PinRequest};
 use crate::service::{CONVENTIONS, PROGRAM_VERSION, Service, ServiceError};
 
 /// Settings of the HTTP layer.
@@ -56,6 +57,9 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
         .route("/s/{token}/datasets/{id}", get(get_dataset))
         .route("/s/{token}/datasets/{id}/meta", put(update_meta))
         .route("/s/{token}/events", get(events))
+        .route("/s/{token}/log", get(get_log).post(pin))
+        .route("/s/{token}/log.json", get(get_log_json))
+        .route("/s/{token}/log.csv", get(get_log_csv))
         .fallback(|| async { ApiError(ServiceError::NotFound) });
     Router::new()
         .route("/", get(home))
@@ -331,6 +335,63 @@ async fn update_meta(
         .map_err(|e| ServiceError::BadRequest(format!("metadata: {e}")))?;
     let summary = service.update_meta(&access, id, meta).await?;
     Ok(Json(json!(summary)))
+}
+
+async fn pin(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+    body: Bytes,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let request: PinRequest = serde_json::from_slice(&body)
+        .map_err(|e| ServiceError::BadRequest(format!("log entry: {e}")))?;
+    let entry = service.pin(&access, request).await?;
+    Ok((StatusCode::CREATED, Json(json!(entry))).into_response())
+}
+
+async fn get_log(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    Ok(Json(json!(service.log(&access).await?)))
+}
+
+/// The log as a downloadable JSON document with the session's provenance.
+async fn get_log_json(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let entries = service.log(&access).await?;
+    let body = json!({
+        "session": access.session.name,
+        "exported_at": crate::service::now_utc(),
+        "program_version": PROGRAM_VERSION,
+        "conventions": CONVENTIONS,
+        "entries": entries,
+    });
+    Ok((
+        [(header::CONTENT_DISPOSITION, "attachment; filename=\"spreadscope-log.json\"")],
+        Json(body),
+    )
+        .into_response())
+}
+
+async fn get_log_csv(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let entries = service.log(&access).await?;
+    Ok((
+        [
+            (header::CONTENT_TYPE, "text/csv; charset=utf-8"),
+            (header::CONTENT_DISPOSITION, "attachment; filename=\"spreadscope-log.csv\""),
+        ],
+        pinned::to_csv(&entries),
+    )
+        .into_response())
 }
 
 async fn events(

@@ -6,6 +6,7 @@
 //! status codes. Talks to the database only through [`crate::store`].
 
 mod demo;
+pub mod log;
 
 use std::sync::Arc;
 

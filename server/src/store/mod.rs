@@ -18,7 +18,10 @@ use crate::dataset::DatasetMeta;
 
 /// Numbered migrations, applied in order; `PRAGMA user_version` records how
 /// many have run. Never edit a released migration: add a new one.
-const MIGRATIONS: &[&str] = &[include_str!("migrations/0001_init.sql")];
+const MIGRATIONS: &[&str] = &[
+    include_str!("migrations/0001_init.sql"),
+    include_str!("migrations/0002_log.sql"),
+];
 
 #[derive(Debug, thiserror::Error)]
 pub enum StoreError {
@@ -292,6 +295,145 @@ impl Store {
     }
 }
 
+/// A log entry ready to be written.
+#[derive(Debug, Clone)]
+pub struct NewLogEntry<'a> {
+    pub session_id: i64,
+    pub created_at: &'a str,
+    pub author: &'a str,
+    pub comment: &'a str,
+    pub dataset_id: Option<i64>,
+    pub retracts: Option<i64>,
+    /// The fit report as JSON text, stored verbatim.
+    pub fit_json: Option<&'a str>,
+    pub program_version: &'a str,
+}
+
+/// A stored log entry.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LogRow {
+    pub id: i64,
+    pub created_at: String,
+    pub author: String,
+    pub comment: String,
+    pub dataset_id: Option<i64>,
+    pub dataset_name: Option<String>,
+    pub dataset_hash: Option<String>,
+    pub retracts: Option<i64>,
+    pub fit_json: Option<String>,
+    pub program_version: String,
+}
+
+/// Why a log entry was refused by the store.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub enum LogRefusal {
+    /// The dataset is not in this session.
+    NoSuchDataset(i64),
+    /// The retracted entry is not in this session.
+    NoSuchEntry(i64),
+}
+
+impl Store {
+    /// Appends a log entry in one transaction, copying the dataset's name and
+    /// content hash into the entry so the provenance survives any later
+    /// change of the dataset's metadata.
+    ///
+    /// # Errors
+    /// Database failure; a refusal is `Ok(Err(..))` and writes nothing.
+    pub fn append_log(&self, e: &NewLogEntry<'_>) -> StoreResult<Result<LogRow, LogRefusal>> {
+        let mut conn = self.lock();
+        let tx = conn.transaction()?;
+        let dataset = match e.dataset_id {
+            None => None,
+            Some(id) => {
+                let found = tx
+                    .query_row(
+                        "SELECT name, content_hash FROM datasets WHERE session_id = ?1 AND id = ?2",
+                        params![e.session_id, id],
+                        |r| Ok((r.get::<_, String>(0)?, r.get::<_, String>(1)?)),
+                    )
+                    .optional()?;
+                match found {
+                    Some(d) => Some(d),
+                    None => return Ok(Err(LogRefusal::NoSuchDataset(id))),
+                }
+            }
+        };
+        if let Some(old) = e.retracts {
+            let exists: Option<i64> = tx
+                .query_row(
+                    "SELECT id FROM log_entries WHERE session_id = ?1 AND id = ?2",
+                    params![e.session_id, old],
+                    |r| r.get(0),
+                )
+                .optional()?;
+            if exists.is_none() {
+                return Ok(Err(LogRefusal::NoSuchEntry(old)));
+            }
+        }
+        let (name, hash) = dataset.unzip();
+        tx.execute(
+            "INSERT INTO log_entries (session_id, created_at, author, comment, dataset_id,
+                 dataset_name, dataset_hash, retracts, fit_json, program_version)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10)",
+            params![
+                e.session_id,
+                e.created_at,
+                e.author,
+                e.comment,
+                e.dataset_id,
+                name,
+                hash,
+                e.retracts,
+                e.fit_json,
+                e.program_version
+            ],
+        )?;
+        let id = tx.last_insert_rowid();
+        tx.commit()?;
+        Ok(Ok(LogRow {
+            id,
+            created_at: e.created_at.into(),
+            author: e.author.into(),
+            comment: e.comment.into(),
+            dataset_id: e.dataset_id,
+            dataset_name: name,
+            dataset_hash: hash,
+            retracts: e.retracts,
+            fit_json: e.fit_json.map(Into::into),
+            program_version: e.program_version.into(),
+        }))
+    }
+
+    /// A session's log, oldest first.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn log(&self, session_id: i64) -> StoreResult<Vec<LogRow>> {
+        let conn = self.lock();
+        let mut stmt = conn.prepare(
+            "SELECT id, created_at, author, comment, dataset_id, dataset_name, dataset_hash,
+                    retracts, fit_json, program_version
+             FROM log_entries WHERE session_id = ?1 ORDER BY id",
+        )?;
+        let rows = stmt.query_map(params![session_id], |r| {
+            Ok(LogRow {
+                id: r.get(0)?,
+                created_at: r.get(1)?,
+                author: r.get(2)?,
+                comment: r.get(3)?,
+                dataset_id: r.get(4)?,
+                dataset_name: r.get(5)?,
+                dataset_hash: r.get(6)?,
+                retracts: r.get(7)?,
+                fit_json: r.get(8)?,
+                program_version: r.get(9)?,
+            })
+        })?;
+        Ok(rows.collect::<Result<_, _>>()?)
+    }
+}
+
 const DATASET_SELECT: &str = "SELECT id, session_id, name, format, content_hash, created_at,
     meta_json, notes_json, offsets_json, times_json, values_blob, errors_blob, mask_blob
     FROM datasets";
@@ -437,6 +579,52 @@ mod tests {
         assert_eq!(row.meta, meta);
         assert!(store.dataset(s.id + 1, id).expect("reads").is_none());
         assert!(store.integrity_ok().expect("checks"));
+    }
+
+    #[test]
+    fn log_entries_are_append_only() {
+        let store = Store::in_memory().expect("opens");
+        let s = store.create_session("a", "e", "v", "t").expect("creates");
+        let entry = NewLogEntry {
+            session_id: s.id,
+            created_at: "t",
+            author: "ana",
+            comment: "first",
+            dataset_id: None,
+            retracts: None,
+            fit_json: None,
+            program_version: "v",
+        };
+        let first = store.append_log(&entry).expect("db").expect("accepted");
+        let retraction = NewLogEntry {
+            retracts: Some(first.id),
+            comment: "wrong window",
+            ..entry.clone()
+        };
+        store.append_log(&retraction).expect("db").expect("accepted");
+        let dangling = NewLogEntry {
+            retracts: Some(999),
+            ..entry.clone()
+        };
+        assert_eq!(
+            store.append_log(&dangling).expect("db"),
+            Err(LogRefusal::NoSuchEntry(999))
+        );
+        let foreign = NewLogEntry {
+            dataset_id: Some(1),
+            ..entry
+        };
+        assert_eq!(
+            store.append_log(&foreign).expect("db"),
+            Err(LogRefusal::NoSuchDataset(1))
+        );
+        let conn = store.lock();
+        assert!(conn.execute("UPDATE log_entries SET comment = 'x'", []).is_err());
+        assert!(conn.execute("DELETE FROM log_entries", []).is_err());
+        drop(conn);
+        let log = store.log(s.id).expect("reads");
+        assert_eq!(log.len(), 2);
+        assert_eq!(log[1].retracts, Some(log[0].id));
     }
 
     #[test]

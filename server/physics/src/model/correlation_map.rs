@@ -4,7 +4,7 @@
 //!
 //! Invariant: offsets strictly increase, times strictly increase and are finite
 //! and ≥ 0; every present value is finite; every present error is finite and
-//! > 0. Missing points are never filled: they are absent from the mask and
+//! positive. Missing points are never filled: they are absent from the mask and
 //! their stored value is 0 so that no NaN ever leaks into arithmetic.
 
 use ndarray::{Array2, s};
