@@ -181,6 +181,7 @@ async fn pages_carry_security_headers_and_content_addressed_assets() {
 async fn uploads_over_the_limit_get_413() {
     let config = spreadscope::api::ApiConfig {
         max_upload_bytes: 1024,
+        ..spreadscope::api::ApiConfig::default()
     };
     let app = crate::support::app_with(&config).await;
     let (edit, _) = new_session(&app.router).await;

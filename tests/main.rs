@@ -4,4 +4,5 @@ mod api;
 mod architecture;
 mod browser;
 mod cli;
+mod crash;
 mod support;

@@ -80,6 +80,7 @@ fn serve(args: &ServeArgs) -> Result<(), CliError> {
     runtime.block_on(async {
         let api = ApiConfig {
             max_upload_bytes: args.max_upload_mb.saturating_mul(1024 * 1024),
+            ..ApiConfig::default()
         };
         let app = App::open(&args.data, &api)
             .await

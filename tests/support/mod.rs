@@ -144,3 +144,27 @@ impl Drop for Server {
 pub const SMALL_CSV: &str = "x,t,C,err\n\
 -1,0.5,0.2,0.01\n0,0.5,0.6,0.01\n1,0.5,0.2,0.01\n\
 -1,1.0,0.3,0.01\n0,1.0,0.4,0.01\n1,1.0,0.3,0.01\n";
+
+/// A minimal blocking HTTP/1.1 request over loopback (no client library
+/// needed): returns the status and body, or `None` if the connection failed.
+pub fn http(method: &str, url: &str, body: &str) -> Option<(u16, String)> {
+    use std::io::{Read, Write};
+    let rest = url.strip_prefix("http://")?;
+    let (host, path) = rest.split_once('/').map_or((rest, "/".to_string()), |(h, p)| (h, format!("/{p}")));
+    let mut stream = std::net::TcpStream::connect(host).ok()?;
+    stream.set_read_timeout(Some(std::time::Duration::from_secs(20))).ok()?;
+    let request = format!(
+        "{method} {path} HTTP/1.1\r\nHost: {host}\r\nContent-Type: application/json\r\nContent-Length: {}\r\nConnection: close\r\n\r\n{body}",
+        body.len()
+    );
+    stream.write_all(request.as_bytes()).ok()?;
+    let mut response = Vec::new();
+    stream.read_to_end(&mut response).ok()?;
+    let text = String::from_utf8_lossy(&response).into_owned();
+    let status: u16 = text.split_whitespace().nth(1)?.parse().ok()?;
+    let (head, body) = text.split_once("\r\n\r\n")?;
+    // Bodies of chunked answers carry size lines; callers here only read
+    // small JSON answers, which axum sends with Content-Length.
+    let _ = head;
+    Some((status, body.to_string()))
+}

@@ -22,6 +22,7 @@ use serde_json::{Value, json};
 use tokio_stream::StreamExt;
 use tokio_stream::wrappers::BroadcastStream;
 use tower_http::set_header::SetResponseHeaderLayer;
+use tower_http::timeout::TimeoutLayer;
 
 use crate::dataset::DatasetMeta;
 use crate::ingest::{Format, IngestOptions};
@@ -33,12 +34,16 @@ use crate::service::{CONVENTIONS, PROGRAM_VERSION, Service, ServiceError};
 pub struct ApiConfig {
     /// Largest accepted upload body, in bytes.
     pub max_upload_bytes: usize,
+    /// Longest time a request may take to produce its response (the event
+    /// stream's body is not limited, only its start).
+    pub request_timeout: Duration,
 }
 
 impl Default for ApiConfig {
     fn default() -> Self {
         Self {
             max_upload_bytes: 256 * 1024 * 1024,
+            request_timeout: Duration::from_secs(300),
         }
     }
 }
@@ -67,6 +72,10 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
         .route("/assets/{hash}/{*path}", get(asset))
         .nest("/api", api)
         .with_state(service)
+        .layer(TimeoutLayer::with_status_code(
+            StatusCode::REQUEST_TIMEOUT,
+            config.request_timeout,
+        ))
         .layer(header_layer(
             header::CONTENT_SECURITY_POLICY,
             "default-src 'self'; script-src 'self'; style-src 'self' 'unsafe-inline'; \
@@ -107,6 +116,17 @@ impl IntoResponse for ApiError {
             ),
             ServiceError::BadRequest(msg) => {
                 (StatusCode::UNPROCESSABLE_ENTITY, json!({"error": msg}))
+            }
+            ServiceError::Busy(seconds) => {
+                let mut response = (
+                    StatusCode::TOO_MANY_REQUESTS,
+                    Json(json!({"error": self.0.to_string(), "retry_after": seconds})),
+                )
+                    .into_response();
+                response
+                    .headers_mut()
+                    .insert(header::RETRY_AFTER, HeaderValue::from(*seconds));
+                return response;
             }
             ServiceError::Internal(msg) => {
                 eprintln!("spreadscope: internal error: {msg}");

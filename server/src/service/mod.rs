@@ -9,6 +9,7 @@ mod demo;
 pub mod log;
 
 use std::sync::Arc;
+use std::sync::atomic::{AtomicUsize, Ordering};
 
 use serde::Serialize;
 use sha2::{Digest, Sha256};
@@ -44,6 +45,9 @@ pub enum ServiceError {
     /// A request the user can fix (bad parameter, bad metadata field).
     #[error("{0}")]
     BadRequest(String),
+    /// Too many heavy jobs are queued; try again after the given seconds.
+    #[error("the server is busy with other computations; try again in {0} s")]
+    Busy(u64),
     /// Something on our side failed; the message is for the log only.
     #[error("internal error: {0}")]
     Internal(String),
@@ -145,12 +149,15 @@ impl DatasetSummary {
 pub struct ServiceConfig {
     /// Heavy jobs (parsing, fits, simulations) allowed at once.
     pub heavy_jobs: usize,
+    /// Heavy jobs allowed to wait for a free slot; more are refused as busy.
+    pub heavy_queue: usize,
 }
 
 impl Default for ServiceConfig {
     fn default() -> Self {
         Self {
             heavy_jobs: std::thread::available_parallelism().map_or(2, usize::from),
+            heavy_queue: 16,
         }
     }
 }
@@ -161,6 +168,9 @@ pub struct Service {
     store: Arc<Store>,
     events: broadcast::Sender<SessionEvent>,
     heavy: Arc<Semaphore>,
+    /// Heavy jobs waiting for or holding a permit.
+    heavy_load: Arc<AtomicUsize>,
+    heavy_limit: usize,
 }
 
 impl Service {
@@ -171,6 +181,8 @@ impl Service {
             store: Arc::new(store),
             events,
             heavy: Arc::new(Semaphore::new(config.heavy_jobs.max(1))),
+            heavy_load: Arc::new(AtomicUsize::new(0)),
+            heavy_limit: config.heavy_jobs.max(1) + config.heavy_queue,
         }
     }
 
@@ -180,6 +192,12 @@ impl Service {
         T: Send + 'static,
         F: FnOnce() -> ServiceResult<T> + Send + 'static,
     {
+        // Count this job for as long as it waits or runs; refuse it when the
+        // queue is full rather than letting requests pile up unboundedly.
+        let load = LoadGuard::enter(&self.heavy_load);
+        if load.count > self.heavy_limit {
+            return Err(ServiceError::Busy(5));
+        }
         let _permit = self
             .heavy
             .clone()
@@ -413,6 +431,28 @@ impl Service {
     }
 }
 
+/// Holds one unit of heavy-job load until dropped.
+struct LoadGuard {
+    counter: Arc<AtomicUsize>,
+    count: usize,
+}
+
+impl LoadGuard {
+    fn enter(counter: &Arc<AtomicUsize>) -> Self {
+        let count = counter.fetch_add(1, Ordering::SeqCst) + 1;
+        Self {
+            counter: counter.clone(),
+            count,
+        }
+    }
+}
+
+impl Drop for LoadGuard {
+    fn drop(&mut self) {
+        self.counter.fetch_sub(1, Ordering::SeqCst);
+    }
+}
+
 fn validate_name(name: &str) -> ServiceResult<String> {
     let name = name.trim();
     if name.is_empty() {
@@ -498,6 +538,34 @@ pub fn now_utc() -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[tokio::test]
+    async fn heavy_jobs_beyond_the_queue_are_refused_as_busy() {
+        let service = Service::new(
+            Store::in_memory().expect("store"),
+            &ServiceConfig {
+                heavy_jobs: 1,
+                heavy_queue: 0,
+            },
+        );
+        let (release, wait) = std::sync::mpsc::channel::<()>();
+        let (started, is_started) = tokio::sync::oneshot::channel::<()>();
+        let busy = service.clone();
+        let first = tokio::spawn(async move {
+            busy.heavy(move || {
+                let _ = started.send(());
+                let _ = wait.recv();
+                Ok(1)
+            })
+            .await
+        });
+        is_started.await.expect("first job runs");
+        let second = service.heavy(|| Ok(2)).await;
+        assert!(matches!(second, Err(ServiceError::Busy(_))), "{second:?}");
+        release.send(()).expect("release");
+        assert_eq!(first.await.expect("joins").expect("ok"), 1);
+        assert_eq!(service.heavy(|| Ok(3)).await.expect("free again"), 3);
+    }
 
     #[test]
     fn tokens_are_128_bit_hex_and_distinct() {
