@@ -17,7 +17,7 @@ or a general-purpose routine, never from spreadscope's own code:
   mpmath.quad (tanh-sinh), with lambda in closed form at alpha = 1
   (gamma0 (pi k - k^2/2), DLMF 25.12.11 with 25.12.7) and alpha = 2
   (Bernoulli polynomial B_4, DLMF 25.12.8 / 24.8.1), and from mpmath.polylog
-  at alpha = 0.75.
+  at alpha = 0.75, 1.25, 1.5 (25 digits there).
 - bessel: mpmath.besselj(n, x).
 
 Run: python3 tests/reference/lattice_reference.py  (takes about a minute).
@@ -100,7 +100,7 @@ def main():
         "2", "3", "4", "5", "6", "8", "10", "20", "45", "1.5", "1.1", "1.01", "1.0001",
         "0.9999", "0.99", "0.9", "0.75", "0.5", "0.25", "0.1", "0.000001", "0",
         "-0.000001", "-0.25", "-0.5", "-0.9", "-1", "-1.5", "-2.5", "-3", "-7.5", "-11",
-        "-20.5", "-41.5", "2.5", "7.3", "3.000001", "0.5000001",
+        "-20.5", "-41.5", "-180.25", "-200.5", "2.5", "7.3", "3.000001", "0.5000001",
     ]
     out["zeta"] = [{"s": r(v), "zeta": s(mp.zeta(d(v)))} for v in zeta_s]
     reg = []
@@ -161,9 +161,12 @@ def main():
     for x, t in [(0, "0.5"), (0, "3"), (2, "1"), (5, "4"), (12, "2"), (30, "10")]:
         val = propagator(lam_alpha2, mp.mpf(1), x, d(t))
         prop.append({"alpha": "2.0", "gamma0": "1.0", "x": x, "t": r(t), "p": s(val)})
-    for x, t in [(0, "1"), (3, "1"), (10, "2")]:
-        val = propagator(lambda k: lam_polylog(mp.mpf("0.75"), k), mp.mpf(1), x, d(t), dps=25)
-        prop.append({"alpha": "0.75", "gamma0": "1.0", "x": x, "t": r(t), "p": s(val, 20)})
+    for a, points in [("0.75", [(0, "1"), (3, "1"), (10, "2")]),
+                      ("1.25", [(0, "1"), (5, "3")]),
+                      ("1.5", [(0, "1"), (4, "2")])]:
+        for x, t in points:
+            val = propagator(lambda k: lam_polylog(d(a), k), mp.mpf(1), x, d(t), dps=25)
+            prop.append({"alpha": r(a), "gamma0": "1.0", "x": x, "t": r(t), "p": s(val, 20)})
     out["propagator"] = prop
 
     # --- Bessel J_n ----------------------------------------------------------
