@@ -267,28 +267,50 @@ async fn the_log_keeps_order_provenance_and_retractions() {
     .await;
     let id = ds["id"].as_i64().expect("id");
     let log = format!("/api/s/{edit}/log");
-    let fit = serde_json::json!({"method": "tail", "parameters": {"z": {"value": 1.4, "err": 0.1}}});
+    let fit =
+        serde_json::json!({"method": "tail", "parameters": {"z": {"value": 1.4, "err": 0.1}}});
     let first = serde_json::json!({"author": "Ada", "comment": "tail looks flat", "dataset": id, "fit": fit});
     let (status, pinned) = send_json(&app.router, Method::POST, &log, first.to_string()).await;
     assert_eq!(status, StatusCode::CREATED, "{pinned}");
-    assert_eq!(pinned["dataset_hash"], ds["content_hash"], "hash copied from the dataset");
+    assert_eq!(
+        pinned["dataset_hash"], ds["content_hash"],
+        "hash copied from the dataset"
+    );
     assert_eq!(pinned["fit"]["parameters"]["z"]["value"], 1.4);
-    assert!(pinned["program_version"].as_str().expect("version").starts_with("spreadscope "));
+    assert!(
+        pinned["program_version"]
+            .as_str()
+            .expect("version")
+            .starts_with("spreadscope ")
+    );
     let old = pinned["id"].as_i64().expect("id");
 
-    let retraction = serde_json::json!({"author": "Ada", "comment": "wrong window", "retracts": old});
+    let retraction =
+        serde_json::json!({"author": "Ada", "comment": "wrong window", "retracts": old});
     let (status, _) = send_json(&app.router, Method::POST, &log, retraction.to_string()).await;
     assert_eq!(status, StatusCode::CREATED);
 
     for (body, field) in [
         (serde_json::json!({"author": "", "comment": "x"}), "author"),
-        (serde_json::json!({"author": "A", "comment": "x", "retracts": 9999}), "retracts"),
-        (serde_json::json!({"author": "A", "comment": "x", "dataset": 9999}), "dataset"),
-        (serde_json::json!({"author": "A", "comment": "x", "fit": [1]}), "fit"),
+        (
+            serde_json::json!({"author": "A", "comment": "x", "retracts": 9999}),
+            "retracts",
+        ),
+        (
+            serde_json::json!({"author": "A", "comment": "x", "dataset": 9999}),
+            "dataset",
+        ),
+        (
+            serde_json::json!({"author": "A", "comment": "x", "fit": [1]}),
+            "fit",
+        ),
     ] {
         let (status, err) = send_json(&app.router, Method::POST, &log, body.to_string()).await;
         assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{body}");
-        assert!(err["error"].as_str().expect("message").contains(field), "{err}");
+        assert!(
+            err["error"].as_str().expect("message").contains(field),
+            "{err}"
+        );
     }
     let (status, _) = send_json(
         &app.router,
@@ -305,17 +327,37 @@ async fn the_log_keeps_order_provenance_and_retractions() {
     assert_eq!(entries[1]["retracts"], old);
     assert!(entries[0]["id"].as_i64() < entries[1]["id"].as_i64());
 
-    let (status, csv, headers) =
-        send(&app.router, Method::GET, &format!("/api/s/{view}/log.csv"), "").await;
+    let (status, csv, headers) = send(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/log.csv"),
+        "",
+    )
+    .await;
     assert_eq!(status, StatusCode::OK);
-    assert!(headers["content-type"].to_str().expect("ascii").starts_with("text/csv"));
+    assert!(
+        headers["content-type"]
+            .to_str()
+            .expect("ascii")
+            .starts_with("text/csv")
+    );
     let csv = String::from_utf8(csv).expect("utf-8");
     assert_eq!(csv.lines().count(), 3, "header and two entries");
     assert!(csv.contains("z=1.4±0.1"));
-    let (_, json_export) =
-        send_json(&app.router, Method::GET, &format!("/api/s/{view}/log.json"), "").await;
+    let (_, json_export) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/log.json"),
+        "",
+    )
+    .await;
     assert_eq!(json_export["entries"].as_array().map(Vec::len), Some(2));
-    assert!(json_export["conventions"].as_str().expect("text").contains("infinite temperature"));
+    assert!(
+        json_export["conventions"]
+            .as_str()
+            .expect("text")
+            .contains("infinite temperature")
+    );
 }
 
 #[tokio::test]
@@ -330,10 +372,21 @@ async fn open_pages_hear_of_new_pins_through_server_sent_events() {
         .expect("request");
     let response = app.router.clone().oneshot(request).await.expect("answers");
     assert_eq!(response.status(), StatusCode::OK);
-    assert!(response.headers()["content-type"].to_str().expect("ascii").starts_with("text/event-stream"));
+    assert!(
+        response.headers()["content-type"]
+            .to_str()
+            .expect("ascii")
+            .starts_with("text/event-stream")
+    );
     let mut body = response.into_body();
     let pin = serde_json::json!({"author": "Bo", "comment": "live"}).to_string();
-    let (status, entry) = send_json(&app.router, Method::POST, &format!("/api/s/{edit}/log"), pin).await;
+    let (status, entry) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/log"),
+        pin,
+    )
+    .await;
     assert_eq!(status, StatusCode::CREATED);
     let frame = tokio::time::timeout(std::time::Duration::from_secs(5), body.frame())
         .await

@@ -45,14 +45,18 @@ async fn every_bad_file_is_refused_with_its_place_and_nothing_is_stored() {
             failures.push(format!("{file}: no problems listed"));
         }
         if let Some(line) = line {
-            let named = problems.iter().any(|p| p["line"].as_u64() == Some(*line as u64));
+            let named = problems
+                .iter()
+                .any(|p| p["line"].as_u64() == Some(*line as u64));
             if !named {
                 failures.push(format!("{file}: line {line} not named in {body}"));
             }
         }
         if let Some(phrase) = phrase {
             let said = problems.iter().any(|p| {
-                p["reason"].as_str().is_some_and(|r| r.to_lowercase().contains(phrase.as_str()))
+                p["reason"]
+                    .as_str()
+                    .is_some_and(|r| r.to_lowercase().contains(phrase.as_str()))
             });
             if !said {
                 failures.push(format!("{file}: no reason mentions `{phrase}` in {body}"));
@@ -60,7 +64,13 @@ async fn every_bad_file_is_refused_with_its_place_and_nothing_is_stored() {
         }
     }
     assert!(failures.is_empty(), "{}", failures.join("\n"));
-    let (_, list) = send_json(&app.router, Method::GET, &format!("/api/s/{edit}/datasets"), "").await;
+    let (_, list) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{edit}/datasets"),
+        "",
+    )
+    .await;
     assert_eq!(list.as_array().map(Vec::len), Some(0), "nothing stored");
     let ok = format!("/api/s/{edit}/datasets?name=good.csv");
     let (status, _) = send_json(&app.router, Method::POST, &ok, SMALL_CSV).await;

@@ -27,7 +27,10 @@ fn acknowledged_pins_survive_kill_9() {
                     match http("POST", &url, &body) {
                         Some((201, text)) => {
                             let entry: Value = serde_json::from_str(&text).expect("json");
-                            acked.lock().expect("lock").push(entry["id"].as_i64().expect("id"));
+                            acked
+                                .lock()
+                                .expect("lock")
+                                .push(entry["id"].as_i64().expect("id"));
                         }
                         // The server died mid-request: that pin was never
                         // acknowledged, so it may or may not be stored.
@@ -51,7 +54,8 @@ fn acknowledged_pins_survive_kill_9() {
     assert!(acked.len() >= 40);
 
     let again = Server::start(dir.path());
-    let (status, text) = http("GET", &format!("{}/api/s/{token}/log", again.base), "").expect("answers");
+    let (status, text) =
+        http("GET", &format!("{}/api/s/{token}/log", again.base), "").expect("answers");
     assert_eq!(status, 200);
     let entries: Value = serde_json::from_str(&text).expect("json");
     let stored: std::collections::HashSet<i64> = entries
@@ -65,5 +69,8 @@ fn acknowledged_pins_survive_kill_9() {
     assert!(again.stop().success());
 
     let store = spreadscope::store::Store::open_dir(dir.path()).expect("reopens");
-    assert!(store.integrity_ok().expect("check runs"), "integrity check failed");
+    assert!(
+        store.integrity_ok().expect("check runs"),
+        "integrity check failed"
+    );
 }

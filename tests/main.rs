@@ -6,4 +6,5 @@ mod bad_input;
 mod browser;
 mod cli;
 mod crash;
+mod load;
 mod support;

@@ -10,5 +10,6 @@ pub mod app;
 pub mod cli;
 pub mod dataset;
 pub mod ingest;
+pub mod loadcheck;
 pub mod service;
 pub mod store;

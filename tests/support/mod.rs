@@ -150,9 +150,13 @@ pub const SMALL_CSV: &str = "x,t,C,err\n\
 pub fn http(method: &str, url: &str, body: &str) -> Option<(u16, String)> {
     use std::io::{Read, Write};
     let rest = url.strip_prefix("http://")?;
-    let (host, path) = rest.split_once('/').map_or((rest, "/".to_string()), |(h, p)| (h, format!("/{p}")));
+    let (host, path) = rest
+        .split_once('/')
+        .map_or((rest, "/".to_string()), |(h, p)| (h, format!("/{p}")));
     let mut stream = std::net::TcpStream::connect(host).ok()?;
-    stream.set_read_timeout(Some(std::time::Duration::from_secs(20))).ok()?;
+    stream
+        .set_read_timeout(Some(std::time::Duration::from_secs(20)))
+        .ok()?;
     let request = format!(
         "{method} {path} HTTP/1.1\r\nHost: {host}\r\nContent-Type: application/json\r\nContent-Length: {}\r\nConnection: close\r\n\r\n{body}",
         body.len()

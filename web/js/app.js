@@ -9,7 +9,8 @@ import { byId, h } from "./dom.js";
 import { couplingLabel, renderDatasetList, wireUpload } from "./datasets.js";
 import { renderSession, setLiveState, wireCopyButtons } from "./header.js";
 import { fillMetaForm, wireMetaForm } from "./metaform.js";
-import { formatNumber, plottingAvailable } from "./plot.js";
+import { formatNumber } from "./format.js";
+import { plottingAvailable } from "./plot.js";
 import { showDataset, showNothing, wireViews } from "./views.js";
 
 /** @typedef {import("./api.js").DatasetSummary} DatasetSummary */
@@ -81,6 +82,7 @@ function renderPairs(id, rows) {
  */
 function renderFacts(d) {
   byId("dataset-title", HTMLElement).textContent = d.name;
+  byId("dataset-more", HTMLElement).hidden = false;
   const unit = d.meta.time_unit ? ` ${d.meta.time_unit}` : " (unit not set)";
   renderPairs("dataset-facts", [
     ["grid", `${d.sites} × ${d.times}`, `${d.sites} sites × ${d.times} times`],
@@ -159,7 +161,13 @@ async function refreshList() {
     app.selectedId = null;
     renderList();
     byId("meta-panel", HTMLElement).hidden = true;
-    showNothing();
+    byId("dataset-more", HTMLElement).hidden = true;
+    byId("dataset-title", HTMLElement).textContent = "No datasets yet";
+    showNothing(
+      app.canEdit
+        ? "This session has no datasets yet: add a correlation map on the left."
+        : "This session has no datasets yet. They appear here as soon as someone adds one.",
+    );
     return;
   }
   await select(first);
@@ -170,8 +178,20 @@ function followEvents() {
   const api = app.api;
   if (api === null || typeof EventSource === "undefined") return;
   const source = new EventSource(api.eventsUrl());
-  source.addEventListener("open", () => setLiveState("live"));
-  source.addEventListener("error", () => setLiveState("reconnecting"));
+  let missedEvents = false;
+  source.addEventListener("open", () => {
+    setLiveState("live");
+    // Changes made while the stream was down sent no events here; catch up.
+    if (missedEvents) {
+      missedEvents = false;
+      void refreshList();
+      if (app.selectedId !== null) void select(app.selectedId);
+    }
+  });
+  source.addEventListener("error", () => {
+    missedEvents = true;
+    setLiveState("reconnecting");
+  });
   source.addEventListener("message", (ev) => {
     /** @type {import("./api.js").ServerEvent} */
     let event;
@@ -204,12 +224,13 @@ async function main() {
     app.canEdit = session.can_edit;
   } catch (e) {
     byId("session-name", HTMLElement).textContent = "Session not available";
+    byId("layout", HTMLElement).hidden = true;
     if (e instanceof ApiError && e.status === 404) {
       fatal("This link does not open any session on this server. Ask for a fresh link.");
     } else {
       fatal(`Could not load the session: ${describe(e)}`);
     }
-    setLiveState("reconnecting");
+    setLiveState("offline");
     return;
   }
   byId("upload-panel", HTMLElement).hidden = !app.canEdit;

@@ -3,9 +3,9 @@
 // every problem the server found, with its line. Knows api.js; knows nothing
 // about plotting.
 
-import { ApiError, FORMATS, guessFormat, nameFromFile } from "./api.js";
+import { ApiError, guessFormat, nameFromFile } from "./api.js";
 import { byId, h } from "./dom.js";
-import { formatNumber } from "./plot.js";
+import { formatNumber } from "./format.js";
 
 /** @typedef {import("./api.js").DatasetSummary} DatasetSummary */
 /** @typedef {import("./api.js").SessionApi} SessionApi */
@@ -136,7 +136,11 @@ export function wireUpload(api, onAdded) {
       for (const file of files) {
         const format = guessFormat(file.name);
         if (format === null) {
-          showProblems(file.name, `The extension does not say which format it is; use one of .csv, .tsv, .txt, ${FORMATS.filter((f) => f !== "csv").map((f) => "." + f).join(", ")}.`, []);
+          showProblems(
+            file.name,
+            "Its extension does not name a format the server reads: use .csv, .tsv, .txt, .npy, .npz or .json.",
+            [],
+          );
           status.textContent = "";
           continue;
         }

@@ -38,7 +38,10 @@ export function renderSession(session) {
   byId("copy-edit", HTMLButtonElement).hidden = !editUrl;
 
   byId("conventions", HTMLElement).textContent = session.conventions;
-  byId("program-version", HTMLElement).textContent = `spreadscope ${session.program_version}.`;
+  const version = session.program_version.startsWith("spreadscope")
+    ? session.program_version
+    : `spreadscope ${session.program_version}`;
+  byId("program-version", HTMLElement).textContent = `${version}.`;
   byId("session-created", HTMLElement).textContent = session.created_at
     ? `Session created ${session.created_at}.`
     : "";
@@ -110,16 +113,22 @@ async function copyText(input) {
   }
 }
 
+/** Words and tooltips of the live-update indicator. */
+const LIVE_TEXT = {
+  connecting: ["connecting…", "Opening the update stream."],
+  live: ["live", "New datasets and metadata changes from others appear here by themselves."],
+  reconnecting: ["reconnecting…", "Lost the update stream; the browser is trying again."],
+  offline: ["not connected", "No session is open, so there are no updates to follow."],
+};
+
 /**
  * Shows whether live updates are flowing.
- * @param {"connecting" | "live" | "reconnecting"} state
+ * @param {keyof typeof LIVE_TEXT} state
  */
 export function setLiveState(state) {
   const el = byId("live-status", HTMLElement);
+  const [text, title] = LIVE_TEXT[state];
   el.dataset.state = state;
-  el.textContent = state === "live" ? "live" : state === "connecting" ? "connecting…" : "reconnecting…";
-  el.title =
-    state === "live"
-      ? "New datasets and metadata changes from others appear here by themselves."
-      : "Lost the update stream; the browser is trying again.";
+  el.textContent = text;
+  el.title = title;
 }

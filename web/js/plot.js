@@ -5,6 +5,7 @@
 // It computes no physics: the only arithmetic here is rescaling for display
 // (log10 of |C| with a floor for the log colour map).
 
+import { formatNumber } from "./format.js";
 import { mapColourScale, orderedSeriesColours } from "./palette.js";
 
 const INK = "#15181d";
@@ -30,9 +31,10 @@ export function plottingAvailable() {
  * An axis in the house style.
  * @param {string} title axis title including its unit
  * @param {"linear" | "log"} type
+ * @param {number} lengthPx room the axis has on screen, in CSS pixels
  * @returns {PlotObject}
  */
-function axis(title, type = "linear") {
+function axis(title, type, lengthPx) {
   return {
     title: { text: title, font: { size: 19, color: INK }, standoff: 12 },
     type,
@@ -48,26 +50,27 @@ function axis(title, type = "linear") {
     ticklen: 6,
     automargin: true,
     exponentformat: "power",
-    // On log axes label only 2 and 5 between decades: the full 2…9 row is
-    // unreadable from the back of a meeting room.
-    ...(type === "log" ? { dtick: "D2" } : {}),
+    // On long log axes label only 2 and 5 between decades (the full 2…9 row
+    // is unreadable from the back of a room); on short ones whole decades.
+    ...(type === "log" ? { dtick: lengthPx >= 250 ? "D2" : 1 } : {}),
   };
 }
 
 /**
+ * @param {HTMLElement} el the plot's container, whose size picks tick density
  * @param {string} xTitle
  * @param {string} yTitle
  * @param {{xType?: "linear" | "log", yType?: "linear" | "log"}} [types]
  * @returns {PlotObject}
  */
-function baseLayout(xTitle, yTitle, types = {}) {
+function baseLayout(el, xTitle, yTitle, types = {}) {
   return {
     font: { family: FONT_FAMILY, size: 16, color: INK },
     paper_bgcolor: "#ffffff",
     plot_bgcolor: "#ffffff",
     margin: { l: 72, r: 24, t: 20, b: 56 },
-    xaxis: axis(xTitle, types.xType ?? "linear"),
-    yaxis: axis(yTitle, types.yType ?? "linear"),
+    xaxis: axis(xTitle, types.xType ?? "linear", el.clientWidth - 160),
+    yaxis: axis(yTitle, types.yType ?? "linear", el.clientHeight - 100),
     hoverlabel: { font: { family: FONT_FAMILY, size: 16 }, bgcolor: "#ffffff", bordercolor: INK },
     legend: {
       font: { size: 16 },
@@ -76,7 +79,6 @@ function baseLayout(xTitle, yTitle, types = {}) {
       borderwidth: 1,
     },
     showlegend: false,
-    uirevision: "keep",
   };
 }
 
@@ -91,16 +93,13 @@ function config() {
 }
 
 /**
- * Formats a number compactly for legends and labels (at most 4 significant digits).
- * @param {number} v
+ * Makes text typed by people safe inside plotly labels, which read a few
+ * HTML-like tags and, in hover templates, `%{…}` placeholders.
+ * @param {string} text
  * @returns {string}
  */
-export function formatNumber(v) {
-  if (!Number.isFinite(v)) return String(v);
-  if (v === 0) return "0";
-  const a = Math.abs(v);
-  if (a >= 1e-3 && a < 1e5) return String(Number(v.toPrecision(4)));
-  return v.toExponential(2).replace("e", "×10^");
+function plain(text) {
+  return text.replace(/&/g, "&amp;").replace(/</g, "&lt;").replace(/>/g, "&gt;").replace(/%\{/g, "%\u200b{");
 }
 
 /**
@@ -108,7 +107,7 @@ export function formatNumber(v) {
  * @returns {string} axis title for time
  */
 function timeTitle(unit) {
-  return unit ? `t (${unit})` : "t (time unit not set)";
+  return unit ? `t (${plain(unit)})` : "t (time unit not set)";
 }
 
 /**
@@ -120,6 +119,7 @@ function timeTitle(unit) {
  * @property {"linear" | "log"} scale
  * @property {number} floor smallest |C| shown on the log scale
  * @property {"linear" | "log"} tScale time axis; every t must be > 0 for "log"
+ * @property {string} revision zoom and pan survive redraws while this stays the same
  */
 
 /**
@@ -162,12 +162,13 @@ export function drawMap(el, input) {
       title: { text: "|C(x,t)|", side: "right", font: { size: 18 } },
       tickmode: "array",
       tickvals,
-      ticktext: tickvals.map((k) => `10<sup>${k}</sup>`),
+      // The floor's own tick reads "≤": every smaller |C| is painted with it.
+      ticktext: tickvals.map((k) => `${k === logFloor ? "≤" : ""}10<sup>${k}</sup>`),
     };
     range.zmin = logFloor;
     range.zmax = top;
   }
-  const unit = timeUnit || "";
+  const unit = plain(timeUnit || "");
   /** @type {PlotObject} */
   const trace = {
     type: "heatmap",
@@ -178,11 +179,12 @@ export function drawMap(el, input) {
     colorscale: mapColourScale(),
     colorbar,
     hoverongaps: false,
-    hovertemplate: `x = %{x} sites<br>t = %{y} ${unit}<br>C = %{customdata:.4~g}<extra></extra>`,
+    hovertemplate: `x = %{x} sites<br>t = %{y:.4~g} ${unit}<br>C = %{customdata:.4~g}<extra></extra>`,
     ...range,
   };
-  const layout = baseLayout("x (sites)", timeTitle(timeUnit), { yType: tScale });
+  const layout = baseLayout(el, "x (sites)", timeTitle(timeUnit), { yType: tScale });
   layout.margin = { l: 72, r: 16, t: 20, b: 56 };
+  layout.uirevision = input.revision;
   return Plotly.react(el, [trace], layout, config());
 }
 
@@ -196,20 +198,20 @@ export function drawMap(el, input) {
 /**
  * Time slices C(x) at chosen times, coloured early (indigo) to late (amber).
  * @param {HTMLElement} el
- * @param {{x: number[], series: SliceSeries[], timeUnit: string, yScale: "linear" | "log"}} input
+ * @param {{x: number[], series: SliceSeries[], timeUnit: string, yScale: "linear" | "log", revision: string}} input
  * @returns {Promise<HTMLElement>}
  */
 export function drawSlices(el, input) {
   const { x, series, timeUnit, yScale } = input;
   const colours = orderedSeriesColours(series.length);
-  const unit = timeUnit ? ` ${timeUnit}` : "";
+  const unit = timeUnit ? ` ${plain(timeUnit)}` : "";
   const traces = series.map((s, i) => {
     const colour = colours[i] ?? INK;
     /** @type {PlotObject} */
     const trace = {
       type: "scatter",
       mode: "lines+markers",
-      name: `t = ${formatNumber(s.t)}${unit}`,
+      name: formatNumber(s.t),
       x,
       y: s.C,
       line: { color: colour, width: 2.5 },
@@ -222,31 +224,33 @@ export function drawSlices(el, input) {
     }
     return trace;
   });
-  const layout = baseLayout("x (sites)", "C(x,t)", { yType: yScale });
+  const layout = baseLayout(el, "x (sites)", "C(x,t)", { yType: yScale });
   layout.showlegend = true;
-  // Outside the axes on the right: inside, the legend hides the tails.
+  // Outside the axes (inside, the legend hides the tails): on the right when
+  // there is room, above the axes in a narrow panel.
+  const narrow = el.clientWidth < 700;
   layout.legend = {
     ...(/** @type {PlotObject} */ (layout.legend)),
-    x: 1.01,
-    xanchor: "left",
-    y: 1,
-    yanchor: "top",
+    ...(narrow
+      ? { orientation: "h", x: 0, xanchor: "left", y: 1.02, yanchor: "bottom" }
+      : { x: 1.01, xanchor: "left", y: 1, yanchor: "top" }),
+    title: { text: timeTitle(timeUnit), font: { size: 16 } },
     borderwidth: 0,
-    title: { text: "time", font: { size: 16 } },
   };
+  layout.uirevision = input.revision;
   return Plotly.react(el, traces, layout, config());
 }
 
 /**
  * Autocorrelation C(0,t) on log–log axes with error bars.
  * @param {HTMLElement} el
- * @param {{points: Array<{t: number, C: number, err: number | null}>, timeUnit: string}} input
+ * @param {{points: Array<{t: number, C: number, err: number | null}>, timeUnit: string, revision: string}} input
  * @returns {Promise<HTMLElement>}
  */
 export function drawAutocorrelation(el, input) {
   const { points, timeUnit } = input;
   const hasErr = points.some((p) => p.err !== null);
-  const unit = timeUnit ? ` ${timeUnit}` : "";
+  const unit = timeUnit ? ` ${plain(timeUnit)}` : "";
   /** @type {PlotObject} */
   const trace = {
     type: "scatter",
@@ -267,7 +271,8 @@ export function drawAutocorrelation(el, input) {
       width: 5,
     };
   }
-  const layout = baseLayout(timeTitle(timeUnit), "C(0,t)", { xType: "log", yType: "log" });
+  const layout = baseLayout(el, timeTitle(timeUnit), "C(0,t)", { xType: "log", yType: "log" });
+  layout.uirevision = input.revision;
   return Plotly.react(el, [trace], layout, config());
 }
 
@@ -275,13 +280,13 @@ export function drawAutocorrelation(el, input) {
  * The sum Σ_x C(x,t) against t with its errors and the reference line at 1.
  * Points computed from incomplete rows get open markers.
  * @param {HTMLElement} el
- * @param {{points: Array<{t: number, sum: number, err: number | null, complete: boolean, present: boolean | number}>, timeUnit: string, tScale: "linear" | "log"}} input
+ * @param {{points: Array<{t: number, sum: number, err: number | null, complete: boolean, present: boolean | number}>, timeUnit: string, tScale: "linear" | "log", revision: string}} input
  * @returns {Promise<HTMLElement>}
  */
 export function drawSumRule(el, input) {
   const { points, timeUnit, tScale } = input;
   const hasErr = points.some((p) => p.err !== null);
-  const unit = timeUnit ? ` ${timeUnit}` : "";
+  const unit = timeUnit ? ` ${plain(timeUnit)}` : "";
   /** @type {PlotObject} */
   const trace = {
     type: "scatter",
@@ -320,7 +325,7 @@ export function drawSumRule(el, input) {
     hoverinfo: "skip",
   };
   trace.name = "Σₓ C(x,t) from the data";
-  const layout = baseLayout(timeTitle(timeUnit), "Σₓ C(x,t)", { xType: tScale });
+  const layout = baseLayout(el, timeTitle(timeUnit), "Σₓ C(x,t)", { xType: tScale });
   layout.showlegend = true;
   layout.legend = {
     ...(/** @type {PlotObject} */ (layout.legend)),
@@ -333,6 +338,7 @@ export function drawSumRule(el, input) {
     bgcolor: "rgba(255,255,255,0)",
   };
   layout.margin = { l: 72, r: 24, t: 44, b: 56 };
+  layout.uirevision = input.revision;
   return Plotly.react(el, [reference, trace], layout, config());
 }
 

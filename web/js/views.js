@@ -5,6 +5,7 @@
 // rows and passes display choices along.
 
 import { byId, h } from "./dom.js";
+import { formatNumber } from "./format.js";
 import {
   clearPlot,
   drawAutocorrelation,
@@ -12,7 +13,6 @@ import {
   drawSlices,
   drawSumRule,
   fitToContainer,
-  formatNumber,
 } from "./plot.js";
 
 /** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
@@ -127,6 +127,17 @@ function timeCaption(view, left, what) {
 }
 
 /**
+ * Zoom and pan are kept across redraws of the same dataset with the same axis
+ * types, and reset when either changes.
+ * @param {DatasetDetail} d
+ * @param {string} axes
+ * @returns {string}
+ */
+function revision(d, axes) {
+  return `${d.id}|${d.content_hash}|${axes}`;
+}
+
+/**
  * Reports a drawing failure where the plot would be.
  * @param {ViewName} view
  * @param {unknown} error
@@ -157,6 +168,7 @@ function drawMapView() {
     scale: state.mapScale,
     floor: state.floor,
     tScale: state.timeAxis,
+    revision: revision(d, state.timeAxis),
   }).catch((e) => drawFailed("map", e));
 }
 
@@ -180,6 +192,7 @@ function drawSlicesView() {
     series,
     timeUnit: d.meta.time_unit,
     yScale: state.sliceY,
+    revision: revision(d, state.sliceY),
   }).catch((e) => drawFailed("slices", e));
 }
 
@@ -201,9 +214,11 @@ function drawAutoView() {
     return;
   }
   note("auto", null);
-  drawAutocorrelation(plotEl("auto"), { points, timeUnit: d.meta.time_unit }).catch((e) =>
-    drawFailed("auto", e),
-  );
+  drawAutocorrelation(plotEl("auto"), {
+    points,
+    timeUnit: d.meta.time_unit,
+    revision: revision(d, "log"),
+  }).catch((e) => drawFailed("auto", e));
 }
 
 function drawSumView() {
@@ -229,7 +244,12 @@ function drawSumView() {
     // count of present sites; a count below the number of sites is incomplete.
     complete: typeof p.present === "number" ? p.present >= d.sites : p.present !== false,
   }));
-  drawSumRule(plotEl("sum"), { points, timeUnit: d.meta.time_unit, tScale: state.timeAxis }).catch((e) =>
+  drawSumRule(plotEl("sum"), {
+    points,
+    timeUnit: d.meta.time_unit,
+    tScale: state.timeAxis,
+    revision: revision(d, state.timeAxis),
+  }).catch((e) =>
     drawFailed("sum", e),
   );
 }
@@ -279,11 +299,14 @@ export function showDataset(detail) {
   for (const view of VIEW_NAMES) DRAW[view]();
 }
 
-/** Empties every view (no dataset chosen). */
-export function showNothing() {
+/**
+ * Empties every view (no dataset to show) and says why in each.
+ * @param {string} message
+ */
+export function showNothing(message) {
   state.detail = null;
   fillTimeOptions();
-  for (const view of VIEW_NAMES) note(view, "Choose a dataset on the left.");
+  for (const view of VIEW_NAMES) note(view, message);
 }
 
 /**
@@ -301,10 +324,6 @@ function activate(view, options = {}) {
     if (on && options.focus) tab.focus();
   }
   fitToContainer(plotEl(view));
-}
-
-function refitAll() {
-  for (const view of VIEW_NAMES) fitToContainer(plotEl(view));
 }
 
 /** Shows the current time-axis choice in both of its radio groups. */
@@ -343,8 +362,11 @@ export function wireViews() {
     document.body.classList.toggle("views-grid", state.grid);
     toggle.setAttribute("aria-pressed", state.grid ? "true" : "false");
     toggle.textContent = state.grid ? "Show one view" : "Show all four";
-    // The panels change size with the layout; let the browser lay them out first.
-    window.requestAnimationFrame(refitAll);
+    // The panels change size with the layout; let the browser lay them out
+    // first, then redraw, since legend placement and tick density follow size.
+    window.requestAnimationFrame(() => {
+      for (const view of VIEW_NAMES) DRAW[view]();
+    });
   });
 
   const floor = byId("map-floor", HTMLSelectElement);

@@ -392,7 +392,10 @@ async fn get_log_json(
         "entries": entries,
     });
     Ok((
-        [(header::CONTENT_DISPOSITION, "attachment; filename=\"spreadscope-log.json\"")],
+        [(
+            header::CONTENT_DISPOSITION,
+            "attachment; filename=\"spreadscope-log.json\"",
+        )],
         Json(body),
     )
         .into_response())
@@ -407,7 +410,10 @@ async fn get_log_csv(
     Ok((
         [
             (header::CONTENT_TYPE, "text/csv; charset=utf-8"),
-            (header::CONTENT_DISPOSITION, "attachment; filename=\"spreadscope-log.csv\""),
+            (
+                header::CONTENT_DISPOSITION,
+                "attachment; filename=\"spreadscope-log.csv\"",
+            ),
         ],
         pinned::to_csv(&entries),
     )

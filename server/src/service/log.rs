@@ -66,14 +66,19 @@ impl From<LogRow> for LogEntry {
 fn check_text(field: &str, text: &str, max: usize, required: bool) -> ServiceResult<String> {
     let text = text.trim();
     if required && text.is_empty() {
-        return Err(ServiceError::BadRequest(format!("field `{field}`: must not be empty")));
+        return Err(ServiceError::BadRequest(format!(
+            "field `{field}`: must not be empty"
+        )));
     }
     if text.chars().count() > max {
         return Err(ServiceError::BadRequest(format!(
             "field `{field}`: longer than {max} characters"
         )));
     }
-    if text.chars().any(|c| c.is_control() && c != '\n' && c != '\t') {
+    if text
+        .chars()
+        .any(|c| c.is_control() && c != '\n' && c != '\t')
+    {
         return Err(ServiceError::BadRequest(format!(
             "field `{field}`: contains control characters"
         )));
@@ -94,8 +99,8 @@ impl Service {
         let fit_json = match &request.fit {
             None | Some(Value::Null) => None,
             Some(v @ Value::Object(_)) => {
-                let text = serde_json::to_string(v)
-                    .map_err(|e| ServiceError::Internal(e.to_string()))?;
+                let text =
+                    serde_json::to_string(v).map_err(|e| ServiceError::Internal(e.to_string()))?;
                 if text.len() > MAX_FIT_BYTES {
                     return Err(ServiceError::BadRequest(
                         "field `fit`: larger than 1 MiB".into(),
@@ -132,9 +137,9 @@ impl Service {
             })
             .await?;
         let row = outcome.map_err(|refusal| match refusal {
-            LogRefusal::NoSuchDataset(id) => {
-                ServiceError::BadRequest(format!("field `dataset`: no dataset {id} in this session"))
-            }
+            LogRefusal::NoSuchDataset(id) => ServiceError::BadRequest(format!(
+                "field `dataset`: no dataset {id} in this session"
+            )),
             LogRefusal::NoSuchEntry(id) => {
                 ServiceError::BadRequest(format!("field `retracts`: no entry {id} in this session"))
             }
@@ -240,7 +245,9 @@ mod tests {
             dataset_name: None,
             dataset_hash: Some("h".into()),
             retracts: None,
-            fit: Some(serde_json::json!({"method": "tail", "parameters": {"z": {"value": 1.5, "err": 0.1}}})),
+            fit: Some(
+                serde_json::json!({"method": "tail", "parameters": {"z": {"value": 1.5, "err": 0.1}}}),
+            ),
             program_version: "v".into(),
         };
         let csv = to_csv(&[entry]);

@@ -601,7 +601,10 @@ mod tests {
             comment: "wrong window",
             ..entry.clone()
         };
-        store.append_log(&retraction).expect("db").expect("accepted");
+        store
+            .append_log(&retraction)
+            .expect("db")
+            .expect("accepted");
         let dangling = NewLogEntry {
             retracts: Some(999),
             ..entry.clone()
@@ -619,7 +622,10 @@ mod tests {
             Err(LogRefusal::NoSuchDataset(1))
         );
         let conn = store.lock();
-        assert!(conn.execute("UPDATE log_entries SET comment = 'x'", []).is_err());
+        assert!(
+            conn.execute("UPDATE log_entries SET comment = 'x'", [])
+                .is_err()
+        );
         assert!(conn.execute("DELETE FROM log_entries", []).is_err());
         drop(conn);
         let log = store.log(s.id).expect("reads");
