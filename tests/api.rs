@@ -397,3 +397,74 @@ async fn open_pages_hear_of_new_pins_through_server_sent_events() {
     assert!(text.contains("\"kind\":\"log-added\""), "{text}");
     assert!(text.contains(&format!("\"id\":{}", entry["id"])), "{text}");
 }
+
+#[tokio::test]
+async fn comparison_and_report_carry_pinned_results() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let (_, ds) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets?name=r.csv"),
+        SMALL_CSV,
+    )
+    .await;
+    let id = ds["id"].as_i64().expect("id");
+    let meta = r#"{"platform":"test chain","alpha":1.25}"#;
+    send_json(
+        &app.router,
+        Method::PUT,
+        &format!("/api/s/{edit}/datasets/{id}/meta"),
+        meta,
+    )
+    .await;
+    let fit = serde_json::json!({"method": "collapse",
+        "parameters": {"z": {"value": 1.52, "err": 0.04}, "D": {"value": 0.8, "err": 0.1}}});
+    let pin = serde_json::json!({"author": "Ada", "comment": "<script>alert(1)</script>", "dataset": id, "fit": fit});
+    let (status, entry) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/log"),
+        pin.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::CREATED);
+    let (_, rows) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/comparison"),
+        "",
+    )
+    .await;
+    let row = &rows[0];
+    assert_eq!(row["entry"], entry["id"]);
+    assert_eq!(row["z"], 1.52);
+    assert_eq!(row["D_err"], 0.1);
+    assert_eq!(row["alpha"], 1.25);
+    assert_eq!(row["platform"], "test chain");
+    assert_eq!(row["retracted"], false);
+
+    let (status, html, headers) = send(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/report.html"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK);
+    let html = String::from_utf8(html).expect("utf-8");
+    assert!(
+        html.contains("&lt;script&gt;alert(1)&lt;/script&gt;"),
+        "comment escaped"
+    );
+    assert!(!html.contains("<script>alert(1)"));
+    assert!(html.contains("z = 1.5200 ± 0.0400"));
+    assert!(html.contains(&ds["content_hash"].as_str().expect("hash")[..12]));
+    let csp = headers["content-security-policy"].to_str().expect("ascii");
+    assert_eq!(csp.matches("'sha256-").count(), 2, "{csp}");
+    assert!(csp.starts_with("default-src 'none'"));
+    assert!(
+        !html.contains("src=\"/") && !html.contains("href=\"/"),
+        "nothing loaded from a server"
+    );
+}

@@ -44,7 +44,7 @@ def small_series(x, mu, cdf=False):
     x = mpf(x)
     s = mpf(0)
     best = None
-    for n in range(0, 4000):
+    for n in range(0, 700):
         c = mpmath.gamma((2 * n + 1) / mu) / mpmath.factorial(2 * n)
         t = (-1) ** n * c * x ** (2 * n)
         if cdf:
@@ -64,7 +64,7 @@ def large_series(x, mu, cdf=False):
     x = mpf(x)
     s = mpf(0)
     best = None
-    for n in range(1, 4000):
+    for n in range(1, 700):
         c = mpmath.gamma(n * mu + 1) / mpmath.factorial(n) * mpmath.sin(n * mp.pi * mu / 2)
         if cdf:
             t = (-1) ** (n + 1) * c / (n * mu) * x ** (-(n * mu))
@@ -83,8 +83,11 @@ def large_series(x, mu, cdf=False):
 
 def ln_v(t, mu):
     a = mu / (mu - 1)
-    return a * (mpmath.log(mpmath.cos(t)) - mpmath.log(mpmath.sin(mu * t))) + mpmath.log(
-        mpmath.cos((mu - 1) * t)) - mpmath.log(mpmath.cos(t))
+    # cos t is written as sin(pi/2 - t) so that it stays accurate (and positive)
+    # next to pi/2, where the tanh-sinh nodes cluster.
+    cos_t = mpmath.sin(mp.pi / 2 - t)
+    return a * (mpmath.log(cos_t) - mpmath.log(mpmath.sin(mu * t))) + mpmath.log(
+        mpmath.cos((mu - 1) * t)) - mpmath.log(cos_t)
 
 
 def nolan_panels(x, mu):

@@ -82,6 +82,12 @@ pub fn serve(hash: &str, path: &str) -> Response {
     response
 }
 
+/// The text of an embedded file, if present and UTF-8.
+pub fn text(path: &str) -> Option<String> {
+    let file = WebFiles::get(path)?;
+    String::from_utf8(file.data.into_owned()).ok()
+}
+
 /// The dashboard page with the asset prefix filled in, or `None` if the
 /// front end is missing from the build.
 pub fn index_html() -> Option<String> {

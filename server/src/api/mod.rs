@@ -65,6 +65,8 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
         .route("/s/{token}/log", get(get_log).post(pin))
         .route("/s/{token}/log.json", get(get_log_json))
         .route("/s/{token}/log.csv", get(get_log_csv))
+        .route("/s/{token}/comparison", get(get_comparison))
+        .route("/s/{token}/report.html", get(get_report))
         .fallback(|| async { ApiError(ServiceError::NotFound) });
     Router::new()
         .route("/", get(home))
@@ -418,6 +420,46 @@ async fn get_log_csv(
         pinned::to_csv(&entries),
     )
         .into_response())
+}
+
+async fn get_comparison(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    Ok(Json(json!(service.comparison(&access).await?)))
+}
+
+/// The self-contained report, served with a policy that allows exactly its
+/// own inline scripts (by hash) and nothing from anywhere.
+async fn get_report(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let library = assets::text("vendor/plotly/plotly.min.js")
+        .ok_or_else(|| ServiceError::Internal("plotting library missing from the build".into()))?;
+    let report = service.report(&access, &library).await?;
+    let hashes: Vec<String> = report
+        .script_hashes
+        .iter()
+        .map(|h| format!("'{h}'"))
+        .collect();
+    let csp = format!(
+        "default-src 'none'; script-src {}; style-src 'unsafe-inline'; img-src data: blob:; \
+         font-src data:; base-uri 'none'; form-action 'none'; frame-ancestors 'none'",
+        hashes.join(" ")
+    );
+    let mut response = Html(report.html).into_response();
+    let headers = response.headers_mut();
+    if let Ok(value) = HeaderValue::from_str(&csp) {
+        headers.insert(header::CONTENT_SECURITY_POLICY, value);
+    }
+    headers.insert(
+        header::CONTENT_DISPOSITION,
+        HeaderValue::from_static("inline; filename=\"spreadscope-report.html\""),
+    );
+    Ok(response)
 }
 
 async fn events(

@@ -7,6 +7,7 @@
 
 mod demo;
 pub mod log;
+pub mod report;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicUsize, Ordering};
