@@ -2,6 +2,8 @@
 
 use std::process::Command;
 
+use spreadscope::ingest::{self, Format, IngestOptions};
+
 fn spreadscope() -> Command {
     Command::new(env!("CARGO_BIN_EXE_spreadscope"))
 }
@@ -13,4 +15,122 @@ fn unknown_options_exit_2() {
         .output()
         .expect("runs");
     assert_eq!(out.status.code(), Some(2));
+}
+
+#[test]
+fn simulate_refuses_bad_options_with_exit_2_naming_the_option() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let out_file = dir.path().join("x.csv");
+    for (args, option) in [
+        (vec!["--sites", "11", "--times", "1,1"], "--times"),
+        (vec!["--sites", "11", "--times", "0:1:3:cubic"], "--times"),
+        (
+            vec!["--sites", "11", "--times", "1,2", "--source", "20"],
+            "--source",
+        ),
+        (vec!["--sites", "1", "--times", "1,2"], "--sites"),
+        (
+            vec!["--sites", "11", "--times", "1,2", "--alpha", "-1"],
+            "--alpha",
+        ),
+    ] {
+        let out = spreadscope()
+            .args(["simulate", "lattice-walk"])
+            .args(&args)
+            .arg("--out")
+            .arg(&out_file)
+            .output()
+            .expect("runs");
+        assert_eq!(out.status.code(), Some(2), "{args:?}");
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        assert!(stderr.contains(option), "{args:?}: {stderr}");
+        assert_eq!(stderr.trim().lines().count(), 1, "one line: {stderr}");
+    }
+    assert!(!out_file.exists(), "nothing written on bad input");
+}
+
+fn simulate(args: &[&str]) -> spreadscope_physics::CorrelationMap {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let path = dir.path().join("sim.csv");
+    let out = spreadscope()
+        .arg("simulate")
+        .args(args)
+        .arg("--out")
+        .arg(&path)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let bytes = std::fs::read(&path).expect("written");
+    let parsed = ingest::parse(&bytes, Format::Csv, &IngestOptions::default())
+        .expect("our own output parses");
+    assert!(parsed.meta.synthetic, "marked synthetic");
+    parsed.map
+}
+
+#[test]
+fn simulated_files_round_trip_bit_for_bit() {
+    let map = simulate(&[
+        "lattice-walk",
+        "--sites",
+        "21",
+        "--alpha",
+        "1.2",
+        "--times",
+        "0.1:10:7:log",
+    ]);
+    let walk = spreadscope_physics::model::lattice_walk::LatticeWalk::power_law(21, 1.0, 1.2)
+        .expect("walk");
+    let direct = walk.to_correlation_map(10, map.times()).expect("map");
+    assert_eq!(
+        map.times(),
+        direct.times(),
+        "times survive printing exactly"
+    );
+    assert_eq!(
+        map.values(),
+        direct.values(),
+        "values survive printing exactly"
+    );
+}
+
+#[test]
+fn two_site_spin_chain_from_the_command_line_is_cos_squared() {
+    // C_11(t) = cos²(Jt), C_21(t) = sin²(Jt) for two sites (PHYSICS.md,
+    // derivable by hand: the flip-flop term rotates |↑↓⟩ into |↓↑⟩).
+    let map = simulate(&[
+        "spin-chain",
+        "--sites",
+        "2",
+        "--source",
+        "0",
+        "--coupling",
+        "0.7",
+        "--times",
+        "0:3:7",
+        "--method",
+        "exact",
+    ]);
+    for (ti, &t) in map.times().iter().enumerate() {
+        let c = (0.7 * t).cos().powi(2);
+        assert!((map.values()[(ti, 0)] - c).abs() < 1e-12, "t = {t}");
+        assert!((map.values()[(ti, 1)] - (1.0 - c)).abs() < 1e-12, "t = {t}");
+    }
+}
+
+#[test]
+fn free_fermion_and_exact_paths_agree_for_a_nearest_neighbour_chain() {
+    // Jordan–Wigner is exact for nearest-neighbour flip-flop chains
+    // (PHYSICS.md): the free-fermion shortcut and exact diagonalisation must
+    // give the same map.
+    let common = ["--sites", "8", "--times", "0.5:4:4"];
+    let free = simulate(&[&["spin-chain"][..], &common, &["--method", "auto"]].concat());
+    let exact = simulate(&[&["spin-chain"][..], &common, &["--method", "exact"]].concat());
+    let diff = (free.values() - exact.values())
+        .mapv(f64::abs)
+        .fold(0.0f64, |m, &v| m.max(v));
+    assert!(diff < 1e-10, "max difference {diff}");
 }

@@ -29,6 +29,8 @@ pub struct Cli {
 pub enum Command {
     /// Serve the dashboard (a fresh data directory starts with the demo session).
     Serve(ServeArgs),
+    /// Compute a reference model's C(x,t) and write it as long CSV `x,t,C[,err]`.
+    Simulate(crate::simulate::SimulateArgs),
 }
 
 #[derive(Debug, clap::Args)]
@@ -61,6 +63,7 @@ pub enum CliError {
 pub fn run(cli: Cli) -> ExitCode {
     let result = match cli.command {
         Command::Serve(args) => serve(&args),
+        Command::Simulate(args) => crate::simulate::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -12,4 +12,5 @@ pub mod dataset;
 pub mod ingest;
 pub mod loadcheck;
 pub mod service;
+pub mod simulate;
 pub mod store;

@@ -44,6 +44,7 @@ def small_series(x, mu, cdf=False):
     x = mpf(x)
     s = mpf(0)
     best = None
+    prev_small = False
     for n in range(0, 700):
         c = mpmath.gamma((2 * n + 1) / mu) / mpmath.factorial(2 * n)
         t = (-1) ** n * c * x ** (2 * n)
@@ -51,8 +52,10 @@ def small_series(x, mu, cdf=False):
             t = t * x / (2 * n + 1)
         s += t
         a = abs(t)
-        if n > 2 and a < SERIES_TOL * abs(s):
+        small = a < SERIES_TOL * abs(s)
+        if n > 2 and small and prev_small:
             return s / (mp.pi * mu), True
+        prev_small = small
         if best is not None and a > 10 * best and n > 10:
             return None, False
         best = a if best is None else min(best, a)
@@ -64,6 +67,7 @@ def large_series(x, mu, cdf=False):
     x = mpf(x)
     s = mpf(0)
     best = None
+    prev_small = False
     for n in range(1, 700):
         c = mpmath.gamma(n * mu + 1) / mpmath.factorial(n) * mpmath.sin(n * mp.pi * mu / 2)
         if cdf:
@@ -72,11 +76,15 @@ def large_series(x, mu, cdf=False):
             t = (-1) ** (n + 1) * c * x ** (-(n * mu + 1))
         s += t
         a = abs(t)
-        if n > 3 and a < SERIES_TOL * abs(s) and a > 0:
+        # A coefficient vanishes where n mu/2 is an integer (sin = 0): require two
+        # consecutive negligible terms before declaring convergence.
+        small = a < SERIES_TOL * abs(s)
+        if n > 3 and small and prev_small:
             return s / mp.pi, True
+        prev_small = small
         if best is not None and a > 10 * best and n > 10 and best > 0:
             return None, False
-        if a > 0:
+        if a > SERIES_TOL * abs(s):
             best = a if best is None else min(best, a)
     return None, False
 
@@ -86,8 +94,11 @@ def ln_v(t, mu):
     # cos t is written as sin(pi/2 - t) so that it stays accurate (and positive)
     # next to pi/2, where the tanh-sinh nodes cluster.
     cos_t = mpmath.sin(mp.pi / 2 - t)
-    return a * (mpmath.log(cos_t) - mpmath.log(mpmath.sin(mu * t))) + mpmath.log(
-        mpmath.cos((mu - 1) * t)) - mpmath.log(cos_t)
+    # abs(): a node rounded past an endpoint must not produce a complex log; the
+    # integrand is negligible there anyway.
+    lc = mpmath.log(abs(cos_t))
+    return a * (lc - mpmath.log(abs(mpmath.sin(mu * t)))) + mpmath.log(
+        abs(mpmath.cos((mu - 1) * t))) - lc
 
 
 def nolan_panels(x, mu):
@@ -126,7 +137,12 @@ def nolan_pdf(x, mu):
     pts, u = nolan_panels(x, mu)
 
     def g(t):
-        h = mpmath.exp(u(t))
+        ut = u(t)
+        if ut > 300:
+            # h e^{-h} < e^{-e^300}: zero at any precision, and mpmath would spend
+            # minutes reducing the huge argument of exp.
+            return mpf(0)
+        h = mpmath.exp(ut)
         return h * mpmath.exp(-h)
 
     val = mpmath.quad(g, pts, maxdegree=10)
@@ -138,10 +154,18 @@ def nolan_sf(x, mu):
     x = mpf(x)
     mu = mpf(mu)
     pts, u = nolan_panels(x, mu)
+    def e_minus_h(t):
+        ut = u(t)
+        return mpf(0) if ut > 300 else mpmath.exp(-mpmath.exp(ut))
+
+    def one_minus_e_minus_h(t):
+        ut = u(t)
+        return mpf(1) if ut > 300 else -mpmath.expm1(-mpmath.exp(ut))
+
     if mu > 1:
-        val = mpmath.quad(lambda t: mpmath.exp(-mpmath.exp(u(t))), pts, maxdegree=10)
+        val = mpmath.quad(e_minus_h, pts, maxdegree=10)
     else:
-        val = mpmath.quad(lambda t: -mpmath.expm1(-mpmath.exp(u(t))), pts, maxdegree=10)
+        val = mpmath.quad(one_minus_e_minus_h, pts, maxdegree=10)
     return val / mp.pi
 
 
@@ -279,7 +303,14 @@ def main():
             p_v = mpf(p)
 
             def integrand(x):
-                return 2 * x ** p_v * nolan_pdf(x, mu_v)
+                if x == 0:
+                    return mpf(0)
+                v, ok = small_series(x, mu_v)
+                if not ok:
+                    v, ok = large_series(x, mu_v)
+                if not ok:
+                    v = nolan_pdf(x, mu_v)
+                return 2 * x ** p_v * v
 
             # Split the half-line where the density changes character; the far tail
             # beyond X is the large-x series integrated term by term.
