@@ -6,5 +6,6 @@ mod bad_input;
 mod browser;
 mod cli;
 mod crash;
+mod fits;
 mod load;
 mod support;

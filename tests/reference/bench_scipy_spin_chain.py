@@ -81,7 +81,7 @@ def fixture():
             for i in range(sites):
                 zi_t = u.conj().T @ np.diag(zs[i]) @ u
                 row.append(np.real(np.trace(zi_t @ zj)) / 2**sites)
-            print(f"t = {t}: [" + ", ".join(f"{c:.15e}" for c in row) + "]")
+            print(f"t = {t}: [" + ", ".join(repr(float(c)) for c in row) + "]")
 
 
 def sparse_hamiltonian(j, delta):

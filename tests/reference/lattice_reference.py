@@ -20,7 +20,7 @@ or a general-purpose routine, never from spreadscope's own code:
   at alpha = 0.75, 1.25, 1.5 (25 digits there).
 - bessel: mpmath.besselj(n, x).
 
-Run: python3 tests/reference/lattice_reference.py  (takes about a minute).
+Run: python3 tests/reference/lattice_reference.py  (takes about two minutes).
 """
 
 import json

@@ -362,8 +362,22 @@ def main():
     for mu, p in [("1.5", "0.75"), ("1.5", "0.999"), ("0.8", "0.9"), ("0.5", "0.999999"),
                   ("1.95", "0.99"), ("1.2", "0.6")]:
         q = 1 - mpf(p)
-        xq = mpmath.findroot(lambda y: reference_sf(y, mu)[0] - q, mpf(1), tol=mpf(10) ** -40)
-        # a secant start far from the root can stall; polish with the true tail
+
+        def g(y):
+            return mpmath.log(reference_sf(y, mu)[0]) - mpmath.log(q)
+
+        # Bracket the root by doubling (1 - F decreases), bisect in ln x to a
+        # 1e-8 bracket, then polish with the Anderson–Björck bracketing solver.
+        lo, hi = mpf("0.01"), mpf(1)
+        while g(hi) > 0:
+            lo, hi = hi, hi * 4
+        for _ in range(30):
+            mid = mpmath.sqrt(lo * hi)
+            if g(mid) > 0:
+                lo = mid
+            else:
+                hi = mid
+        xq = mpmath.findroot(g, (lo, hi), solver="anderson", tol=mpf(10) ** -60)
         q_rows.append({"mu": mu, "p": p, "quantile": s(xq)})
         print("quantile", mu, p, mpmath.nstr(xq, 15), flush=True)
 

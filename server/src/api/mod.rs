@@ -26,6 +26,7 @@ use tower_http::timeout::TimeoutLayer;
 
 use crate::dataset::DatasetMeta;
 use crate::ingest::{Format, IngestOptions};
+use crate::service::fits::{FitRequest, Windows};
 use crate::service::log::{self as pinned, PinRequest};
 use crate::service::{CONVENTIONS, PROGRAM_VERSION, Service, ServiceError};
 
@@ -66,6 +67,12 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
         .route("/s/{token}/log.json", get(get_log_json))
         .route("/s/{token}/log.csv", get(get_log_csv))
         .route("/s/{token}/comparison", get(get_comparison))
+        .route("/s/{token}/datasets/{id}/fits", post(run_fit))
+        .route(
+            "/s/{token}/datasets/{id}/collapse-quality",
+            get(collapse_quality),
+        )
+        .route("/s/{token}/jobs/{job}/cancel", post(cancel_job))
         .route("/s/{token}/report.html", get(get_report))
         .fallback(|| async { ApiError(ServiceError::NotFound) });
     Router::new()
@@ -119,6 +126,7 @@ impl IntoResponse for ApiError {
             ServiceError::BadRequest(msg) => {
                 (StatusCode::UNPROCESSABLE_ENTITY, json!({"error": msg}))
             }
+            ServiceError::Cancelled => (StatusCode::CONFLICT, json!({"error": self.0.to_string()})),
             ServiceError::Busy(seconds) => {
                 let mut response = (
                     StatusCode::TOO_MANY_REQUESTS,
@@ -143,6 +151,20 @@ impl IntoResponse for ApiError {
 }
 
 type ApiResult<T> = Result<T, ApiError>;
+
+/// Parses a JSON request body; a failure names the field (`field \`a.b\``)
+/// as well as serde's reason.
+fn parse_json<T: serde::de::DeserializeOwned>(body: &[u8], what: &str) -> Result<T, ServiceError> {
+    let mut de = serde_json::Deserializer::from_slice(body);
+    serde_path_to_error::deserialize(&mut de).map_err(|e| {
+        let path = e.path().to_string();
+        if path.is_empty() || path == "." {
+            ServiceError::BadRequest(format!("{what}: {}", e.inner()))
+        } else {
+            ServiceError::BadRequest(format!("{what}: field `{path}`: {}", e.inner()))
+        }
+    })
+}
 
 async fn home() -> Html<&'static str> {
     Html(
@@ -353,8 +375,7 @@ async fn update_meta(
     body: Bytes,
 ) -> ApiResult<Json<Value>> {
     let access = service.access(&token).await?;
-    let meta: DatasetMeta = serde_json::from_slice(&body)
-        .map_err(|e| ServiceError::BadRequest(format!("metadata: {e}")))?;
+    let meta: DatasetMeta = parse_json(&body, "metadata")?;
     let summary = service.update_meta(&access, id, meta).await?;
     Ok(Json(json!(summary)))
 }
@@ -365,8 +386,7 @@ async fn pin(
     body: Bytes,
 ) -> ApiResult<Response> {
     let access = service.access(&token).await?;
-    let request: PinRequest = serde_json::from_slice(&body)
-        .map_err(|e| ServiceError::BadRequest(format!("log entry: {e}")))?;
+    let request: PinRequest = parse_json(&body, "log entry")?;
     let entry = service.pin(&access, request).await?;
     Ok((StatusCode::CREATED, Json(json!(entry))).into_response())
 }
@@ -420,6 +440,52 @@ async fn get_log_csv(
         pinned::to_csv(&entries),
     )
         .into_response())
+}
+
+async fn run_fit(
+    State(service): State<Service>,
+    Path((token, id)): Path<(String, i64)>,
+    body: Bytes,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let request: FitRequest = parse_json(&body, "fit request")?;
+    Ok(Json(json!(service.fit(&access, id, request).await?)))
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct QualityQuery {
+    z: f64,
+    t_min: Option<f64>,
+    t_max: Option<f64>,
+    x_max: Option<i32>,
+}
+
+async fn collapse_quality(
+    State(service): State<Service>,
+    Path((token, id)): Path<(String, i64)>,
+    query: Result<Query<QualityQuery>, axum::extract::rejection::QueryRejection>,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let Query(q) =
+        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    let windows = Windows {
+        t_min: q.t_min,
+        t_max: q.t_max,
+        x_max: q.x_max,
+    };
+    Ok(Json(
+        service.collapse_quality(&access, id, windows, q.z).await?,
+    ))
+}
+
+async fn cancel_job(
+    State(service): State<Service>,
+    Path((token, job)): Path<(String, String)>,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let cancelled = service.cancel_job(&access, &job);
+    Ok(Json(json!({"job": job, "cancelled": cancelled})))
 }
 
 async fn get_comparison(

@@ -6,6 +6,7 @@
 //! status codes. Talks to the database only through [`crate::store`].
 
 mod demo;
+pub mod fits;
 pub mod log;
 pub mod report;
 
@@ -46,6 +47,9 @@ pub enum ServiceError {
     /// A request the user can fix (bad parameter, bad metadata field).
     #[error("{0}")]
     BadRequest(String),
+    /// The job was cancelled by its client.
+    #[error("the job was cancelled")]
+    Cancelled,
     /// Too many heavy jobs are queued; try again after the given seconds.
     #[error("the server is busy with other computations; try again in {0} s")]
     Busy(u64),
@@ -68,7 +72,12 @@ pub struct SessionEvent {
     #[serde(skip)]
     pub session_id: i64,
     pub kind: &'static str,
-    pub id: i64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub id: Option<i64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub job: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub fraction: Option<f64>,
 }
 
 /// The outcome of resolving a token.
@@ -172,6 +181,7 @@ pub struct Service {
     /// Heavy jobs waiting for or holding a permit.
     heavy_load: Arc<AtomicUsize>,
     heavy_limit: usize,
+    jobs: Arc<fits::Jobs>,
 }
 
 impl Service {
@@ -184,6 +194,7 @@ impl Service {
             heavy: Arc::new(Semaphore::new(config.heavy_jobs.max(1))),
             heavy_load: Arc::new(AtomicUsize::new(0)),
             heavy_limit: config.heavy_jobs.max(1) + config.heavy_queue,
+            jobs: Arc::new(fits::Jobs::default()),
         }
     }
 
@@ -234,7 +245,19 @@ impl Service {
         let _ = self.events.send(SessionEvent {
             session_id,
             kind,
-            id,
+            id: Some(id),
+            job: None,
+            fraction: None,
+        });
+    }
+
+    fn publish_progress(&self, session_id: i64, job: &str, fraction: f64) {
+        let _ = self.events.send(SessionEvent {
+            session_id,
+            kind: "job-progress",
+            id: None,
+            job: Some(job.to_string()),
+            fraction: Some(fraction),
         });
     }
 

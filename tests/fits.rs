@@ -1,0 +1,206 @@
+//! Fits through the API: the envelope's provenance, windows, bad requests,
+//! collapse quality for sliders, job progress events.
+
+use axum::http::{Method, StatusCode};
+use serde_json::{Value, json};
+
+use crate::support::{app, new_session, send_json};
+
+/// Diffusive scaling data, closed form (DESIGN.md: z = 2 is a Gaussian of
+/// variance 2Dt): C(x,t) = exp(−x²/(4Dt)) / (2√(πDt)), D = 0.5, with a
+/// stated error of 1e-4 on every point and no noise.
+fn gaussian_csv() -> String {
+    let mut csv = String::from("x,t,C,err\n");
+    for k in 0..12 {
+        let t = 2.0 * 1.25f64.powi(k);
+        for x in -30..=30 {
+            let dt = 0.5 * t;
+            let c = (-(f64::from(x)).powi(2) / (4.0 * dt)).exp()
+                / (2.0 * (std::f64::consts::PI * dt).sqrt());
+            csv.push_str(&format!("{x},{t:?},{c:?},0.0001\n"));
+        }
+    }
+    csv
+}
+
+async fn upload_gaussian(router: &axum::Router, edit: &str) -> i64 {
+    let (status, ds) = send_json(
+        router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets?name=gauss.csv"),
+        gaussian_csv(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::CREATED, "{ds}");
+    ds["id"].as_i64().expect("id")
+}
+
+#[tokio::test]
+async fn tail_fit_recovers_the_diffusive_exponent_with_provenance() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let body = json!({"method": "tail", "windows": {"t_min": 3.0}});
+    // Fits do not write: a view link may run them.
+    let (status, fit) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{view}/datasets/{id}/fits"),
+        body.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    let z = fit["parameters"]["z"]["value"].as_f64().expect("z");
+    // C(0,t) = (2πt)^{-1/2} exactly here, so z = 2 up to rounding.
+    assert!((z - 2.0).abs() < 1e-6, "z = {z}");
+    assert_eq!(fit["method"], "tail");
+    assert_eq!(fit["windows"]["t_min"], 3.0);
+    assert_eq!(fit["dataset"], id);
+    assert_eq!(fit["dataset_hash"].as_str().map(str::len), Some(64));
+    assert!(
+        fit["program_version"]
+            .as_str()
+            .expect("version")
+            .starts_with("spreadscope")
+    );
+    assert!(fit["report"]["t_window"][0].as_f64().expect("window") >= 3.0);
+    assert!(
+        fit["report"]["local_exponent"]
+            .as_array()
+            .is_some_and(|a| !a.is_empty())
+    );
+
+    // The result pins as it is, with its provenance.
+    let pin = json!({"author": "Ada", "comment": "diffusive", "dataset": id, "fit": fit});
+    let (status, entry) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/log"),
+        pin.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::CREATED);
+    assert_eq!(
+        entry["fit"]["parameters"]["z"]["value"],
+        fit["parameters"]["z"]["value"]
+    );
+}
+
+#[tokio::test]
+async fn collapse_fit_and_slider_quality_find_z_two() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let body = json!({"method": "collapse", "windows": {"t_min": 10.0}, "options": {"bootstrap": 10, "seed": 3, "z_min": 1.0, "z_max": 3.0}});
+    let (status, fit) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/{id}/fits"),
+        body.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    let z = fit["parameters"]["z"]["value"].as_f64().expect("z");
+    assert!((z - 2.0).abs() < 0.02, "z = {z}");
+    assert_eq!(fit["seed"], 3);
+    let at = |z: f64| format!("/api/s/{edit}/datasets/{id}/collapse-quality?z={z}&t_min=10");
+    let (_, good) = send_json(&app.router, Method::GET, &at(2.0), "").await;
+    let (_, poor) = send_json(&app.router, Method::GET, &at(1.2), "").await;
+    let (s_good, s_poor) = (
+        good["quality"].as_f64().expect("S"),
+        poor["quality"].as_f64().expect("S"),
+    );
+    // Noise-free lattice data: S(2) is not 0 only through the linear
+    // interpolation of the neighbouring curves; a wrong z is far worse.
+    assert!(s_good < s_poor / 50.0, "S(2) = {s_good}, S(1.2) = {s_poor}");
+    let (status, _) = send_json(&app.router, Method::GET, &at(-1.0), "").await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
+}
+
+#[tokio::test]
+async fn bad_fit_requests_name_their_field() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let uri = format!("/api/s/{edit}/datasets/{id}/fits");
+    for (body, field) in [
+        (
+            json!({"method": "tail", "windows": {"t_min": 50.0, "t_max": 10.0}}),
+            "t_min",
+        ),
+        (
+            json!({"method": "tail", "windows": {"t_min": 1000.0}}),
+            "windows",
+        ),
+        (json!({"method": "magic"}), "method"),
+        (json!({"method": "collapse", "options": {"zz": 1}}), "zz"),
+    ] {
+        let (status, err) = send_json(&app.router, Method::POST, &uri, body.to_string()).await;
+        assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{body}");
+        assert!(
+            err["error"].as_str().expect("message").contains(field),
+            "{err}"
+        );
+    }
+    let (status, _) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/999/fits"),
+        json!({"method": "tail"}).to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::NOT_FOUND);
+    let (_, cancel) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/jobs/none/cancel"),
+        "",
+    )
+    .await;
+    assert_eq!(cancel["cancelled"], false);
+}
+
+#[tokio::test]
+async fn a_fit_with_a_job_id_reports_progress_as_events() {
+    use http_body_util::BodyExt;
+    use tower::ServiceExt;
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let request = axum::http::Request::builder()
+        .uri(format!("/api/s/{edit}/events"))
+        .body(axum::body::Body::empty())
+        .expect("request");
+    let mut events = app
+        .router
+        .clone()
+        .oneshot(request)
+        .await
+        .expect("answers")
+        .into_body();
+    let body = json!({"method": "width", "job": "job-7"});
+    let (status, _) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/{id}/fits"),
+        body.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK);
+    let mut seen = Vec::new();
+    while seen.len() < 2 {
+        let frame = tokio::time::timeout(std::time::Duration::from_secs(5), events.frame())
+            .await
+            .expect("events arrive")
+            .expect("frame")
+            .expect("ok");
+        let text = String::from_utf8(frame.into_data().expect("data").to_vec()).expect("utf-8");
+        for line in text.lines().filter_map(|l| l.strip_prefix("data: ")) {
+            let v: Value = serde_json::from_str(line).expect("json");
+            if v["kind"] == "job-progress" && v["job"] == "job-7" {
+                seen.push(v["fraction"].as_f64().expect("fraction"));
+            }
+        }
+    }
+    assert_eq!(seen, vec![0.0, 1.0]);
+}
