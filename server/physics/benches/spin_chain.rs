@@ -6,6 +6,8 @@
 //! Run (release, the default for `cargo bench`):
 //!   cargo bench -p spreadscope-physics --bench spin_chain
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 16 4   # sites, samples
+//!   cargo bench -p spreadscope-physics --bench spin_chain -- 22 2 1  # ... and t_max
+//!   cargo bench -p spreadscope-physics --bench spin_chain -- exact 12 14
 //! Peak resident memory, measured from outside:
 //!   /usr/bin/time -v target/release/deps/spin_chain-* --bench 20 2
 //! The scipy side (same chain, times, estimator and sample count):
@@ -21,10 +23,10 @@ use std::time::Instant;
 use spreadscope_physics::model::couplings::Couplings;
 use spreadscope_physics::model::spin_chain::{SpinChain, TypicalityOptions};
 
-fn run(sites: usize, samples: usize) {
+fn run(sites: usize, samples: usize, t_max: f64) {
     let couplings = Couplings::power_law(sites, 1.0, 1.0).expect("valid couplings");
     let chain = SpinChain::new(&couplings, 0.0).expect("valid chain");
-    let times: Vec<f64> = (0..50).map(|k| 10.0 * (k + 1) as f64 / 50.0).collect();
+    let times: Vec<f64> = (0..50).map(|k| t_max * (k + 1) as f64 / 50.0).collect();
     let source = sites / 2;
     let options = TypicalityOptions::new(samples, 2024);
     let never = AtomicBool::new(false);
@@ -37,13 +39,13 @@ fn run(sites: usize, samples: usize) {
     let sum: f64 = result.values.row(last).sum();
     let max_err = result.errors.iter().copied().fold(0.0f64, f64::max);
     println!(
-        "N = {sites:2}, alpha = 1, Delta = 0, {samples} samples, 50 times to t = 10: \
+        "N = {sites:2}, alpha = 1, Delta = 0, {samples} samples, 50 times to t = {t_max}: \
          {seconds:8.2} s wall, {} threads",
         rayon::current_num_threads()
     );
     println!(
         "    memory plan {:.0} MiB (Krylov dim {}, {} samples in flight); \
-         C(0, 10) = {:.6} ± {:.1e}; sum rule at t = 10: {:.3e} off; \
+         C(0, t_max) = {:.6} ± {:.1e}; sum rule at t_max: {:.3e} off; \
          largest standard error {:.1e}; propagation bound {:.1e}",
         result.memory.bytes as f64 / (1u64 << 20) as f64,
         result.memory.krylov_dim,
@@ -56,17 +58,40 @@ fn run(sites: usize, samples: usize) {
     );
 }
 
+/// The exact method on its largest chain, for reference (no target).
+fn run_exact(sites: usize) {
+    let couplings = Couplings::power_law(sites, 1.0, 1.0).expect("valid couplings");
+    let chain = SpinChain::new(&couplings, 0.0).expect("valid chain");
+    let times: Vec<f64> = (0..50).map(|k| 10.0 * (k + 1) as f64 / 50.0).collect();
+    let start = Instant::now();
+    let values = chain
+        .correlations_exact(sites / 2, &times)
+        .expect("exact run");
+    println!(
+        "exact N = {sites:2}, alpha = 1, Delta = 0, 50 times to t = 10: {:8.2} s wall; \
+         C(0, 10) = {:.6}",
+        start.elapsed().as_secs_f64(),
+        values[(times.len() - 1, sites / 2)]
+    );
+}
+
 fn main() {
-    let args: Vec<usize> = std::env::args()
-        .skip(1)
-        .filter_map(|a| a.parse().ok())
-        .collect();
+    let raw: Vec<String> = std::env::args().skip(1).collect();
+    if raw.iter().any(|a| a == "exact") {
+        for sites in raw.iter().filter_map(|a| a.parse().ok()) {
+            run_exact(sites);
+        }
+        return;
+    }
+    let args: Vec<f64> = raw.iter().filter_map(|a| a.parse().ok()).collect();
+    let count = |x: f64| x as usize;
     match args.as_slice() {
-        [sites, samples, ..] => run(*sites, *samples),
-        [sites] => run(*sites, 2),
+        [sites, samples, t_max, ..] => run(count(*sites), count(*samples), *t_max),
+        [sites, samples] => run(count(*sites), count(*samples), 10.0),
+        [sites] => run(count(*sites), 2, 10.0),
         _ => {
-            run(16, 4);
-            run(20, 2);
+            run(16, 4, 10.0);
+            run(20, 2, 10.0);
         }
     }
 }

@@ -1,6 +1,7 @@
 //! Estimators: every fit returns a report with parameters, uncertainties,
 //! goodness of fit and why it stopped. Depends on `model` and `numerics`.
 
+pub mod analysis;
 pub mod collapse;
 pub mod diagnosis;
 pub mod lattice_walk_fit;

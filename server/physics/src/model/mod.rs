@@ -7,5 +7,6 @@ pub mod couplings;
 pub mod free_fermion;
 pub mod lattice_walk;
 pub mod short_time;
+pub mod shots;
 pub mod spin_chain;
 pub mod stable;

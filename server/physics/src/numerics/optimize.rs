@@ -22,7 +22,8 @@
 //! (JᵀJ + λ D) δ = −Jᵀr,
 //! with D diagonal: D_jj is the largest (JᵀJ)_jj seen so far (Marquardt's
 //! scaling, in the monotone form of Moré, "The Levenberg–Marquardt algorithm:
-//! implementation and theory", Lecture Notes in Mathematics 630 (1978)), which
+//! implementation and theory", in Numerical Analysis, ed. G. A. Watson,
+//! Springer LNM 630, 105–116 (1978)), which
 //! makes the iteration invariant under rescaling of the parameters. The
 //! damping λ starts at `initial_damping` and is updated from the gain ratio
 //! ρ = (actual decrease of χ²)/(decrease predicted by the linear model) as in
@@ -1033,7 +1034,8 @@ pub fn root_bracketed(
 ) -> Result<ScalarResult, OptimizeError> {
     check_interval(lower, upper)?;
     let (f_lower, f_upper) = (f(lower), f(upper));
-    if !(f_lower * f_upper <= 0.0) {
+    let product = f_lower * f_upper;
+    if product.is_nan() || product > 0.0 {
         return Err(OptimizeError::NotBracketed { f_lower, f_upper });
     }
     let solver = BrentRoot::new(lower, upper, tol);
@@ -1099,7 +1101,9 @@ mod tests {
 
     /// Analytic gradients ∂f/∂b (differentiated by hand) for some problems,
     /// so that both the analytic and the finite-difference paths are tested.
-    fn gradient(name: &str) -> Option<fn(f64, &[f64], &mut [f64])> {
+    type GradientFn = fn(f64, &[f64], &mut [f64]);
+
+    fn gradient(name: &str) -> Option<GradientFn> {
         match name {
             "MGH09" => Some(|x, b, g| {
                 let num = x * x + x * b[1];

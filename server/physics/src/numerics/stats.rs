@@ -207,7 +207,8 @@ pub fn summarize_bootstrap(replicates: &[f64]) -> BootstrapSummary {
 
 /// Probability that a χ² variable with `dof` degrees of freedom exceeds
 /// `chi2`: Q(dof/2, chi2/2), the regularised upper incomplete gamma function
-/// (A&S 26.4.19), from `puruspe::gammq` (accuracy ~1e-14). NaN for dof = 0
+/// (A&S 26.4.19), from `puruspe::gammq` (relative accuracy ~3e-11 against
+/// scipy in the tests; ample for a p-value). NaN for dof = 0
 /// or a negative or non-finite χ².
 #[must_use]
 pub fn chi2_survival(chi2: f64, dof: usize) -> f64 {
@@ -294,13 +295,13 @@ mod tests {
         ];
         for (x, k, want) in cases {
             assert!(
-                close(chi2_survival(x, k), want, 1e-12, 0.0),
+                close(chi2_survival(x, k), want, 1e-10, 0.0),
                 "x = {x}, k = {k}"
             );
         }
         // Two degrees of freedom: Q = exp(−x/2) (A&S 26.4.21, closed form).
         for x in [0.5, 3.0, 20.0] {
-            assert!(close(chi2_survival(x, 2), (-x / 2.0_f64).exp(), 1e-13, 0.0));
+            assert!(close(chi2_survival(x, 2), (-x / 2.0_f64).exp(), 1e-10, 0.0));
         }
         assert!(chi2_survival(1.0, 0).is_nan());
     }

@@ -36,13 +36,19 @@ use crate::numerics::linalg::symmetric_eigen;
 /// about 1 GiB on machines with many cores.
 const WORK_BUFFER_BUDGET: usize = 1 << 30;
 
-/// C_{i,source}(t) for every site i and time, `[time, site]`. See the module
-/// documentation for the method and its accuracy.
+/// Memory allowed for the eigenbasis matrices A_j of the sources kept at the
+/// same time; more sources are handled in groups.
+const SOURCE_BUFFER_BUDGET: usize = 1 << 29;
+
+/// C_{i,j}(t) for every site i, every source j of `sources` and every time,
+/// one `[time, site]` array per source. The diagonalisation and the site
+/// matrices A_i are shared by all sources. See the module documentation for
+/// the method and its accuracy.
 pub(super) fn correlations(
     chain: &SpinChain,
-    source: usize,
+    sources: &[usize],
     times: &[f64],
-) -> Result<Array2<f64>, SpinChainError> {
+) -> Result<Vec<Array2<f64>>, SpinChainError> {
     let sites = chain.sites();
     if sites > MAX_EXACT_SITES {
         return Err(SpinChainError::TooLargeForExact {
@@ -51,25 +57,33 @@ pub(super) fn correlations(
             typical_max: MAX_TYPICAL_SITES,
         });
     }
-    chain.check_source_and_times(source, times)?;
+    for &source in sources {
+        chain.check_source_and_times(source, times)?;
+    }
     let n_times = times.len();
-    let mut total = Array2::<f64>::zeros((n_times, sites));
+    let mut totals = vec![Array2::<f64>::zeros((n_times, sites)); sources.len()];
     for up in 0..=sites / 2 {
         let sector = Sector::new(sites, up);
-        let traces = sector_traces(chain, &sector, source, times)?;
-        total.scaled_add(sector.flip_weight(), &traces);
+        let traces = sector_traces(chain, &sector, sources, times)?;
+        for (total, trace) in totals.iter_mut().zip(&traces) {
+            total.scaled_add(sector.flip_weight(), trace);
+        }
     }
-    total.mapv_inplace(|v| v / (1u64 << sites) as f64);
-    Ok(total)
+    let norm = 1.0 / (1u64 << sites) as f64;
+    for total in &mut totals {
+        total.mapv_inplace(|v| v * norm);
+    }
+    Ok(totals)
 }
 
-/// Tr_sector[σᶻ_i(t) σᶻ_source] for all sites i and times, `[time, site]`.
+/// Tr_sector[σᶻ_i(t) σᶻ_j] for all sites i, sources j and times: one
+/// `[time, site]` array per source.
 fn sector_traces(
     chain: &SpinChain,
     sector: &Sector,
-    source: usize,
+    sources: &[usize],
     times: &[f64],
-) -> Result<Array2<f64>, SpinChainError> {
+) -> Result<Vec<Array2<f64>>, SpinChainError> {
     let n_times = times.len();
     let d = sector.dim();
     let eigen = symmetric_eigen(&chain.dense_sector_hamiltonian(sector))?;
@@ -82,31 +96,55 @@ fn sector_traces(
             (lambda * times[c - n_times]).sin()
         }
     });
-    let a_source = site_in_eigenbasis(&eigen.vectors, sector, source);
+    let matrix_bytes = 8 * d * d;
+    let group_size = (SOURCE_BUFFER_BUDGET / matrix_bytes.max(1)).clamp(1, sources.len().max(1));
     let per_task_bytes = 8 * (2 * d * d + d * sector.dim_with_up() + 4 * d * n_times);
     let concurrent =
         (WORK_BUFFER_BUDGET / per_task_bytes.max(1)).clamp(1, rayon::current_num_threads().max(1));
     let site_list: Vec<usize> = (0..sector.sites).collect();
-    let mut traces = Array2::<f64>::zeros((n_times, sector.sites));
-    for chunk in site_list.chunks(concurrent) {
-        let columns: Vec<(usize, Array1<f64>)> = chunk
+    let mut traces = vec![Array2::<f64>::zeros((n_times, sector.sites)); sources.len()];
+    for (group_index, group) in sources.chunks(group_size).enumerate() {
+        let stored: Vec<Array2<f64>> = group
             .par_iter()
-            .map(|&site| {
-                let mut product = site_in_eigenbasis(&eigen.vectors, sector, site);
-                product.zip_mut_with(&a_source, |p, a| *p *= a);
-                let weighted = product.dot(&phases);
-                let column = Array1::from_shape_fn(n_times, |c| {
-                    let cos_part = phases.column(c).dot(&weighted.column(c));
-                    let sin_part = phases
-                        .column(c + n_times)
-                        .dot(&weighted.column(c + n_times));
-                    cos_part + sin_part
-                });
-                (site, column)
-            })
+            .map(|&source| site_in_eigenbasis(&eigen.vectors, sector, source))
             .collect();
-        for (site, column) in columns {
-            traces.column_mut(site).assign(&column);
+        for chunk in site_list.chunks(concurrent) {
+            let columns: Vec<(usize, Vec<Array1<f64>>)> = chunk
+                .par_iter()
+                .map(|&site| {
+                    // A site that is also a source of this group reuses
+                    // its stored matrix.
+                    let own;
+                    let a_site = match group.iter().position(|&s| s == site) {
+                        Some(k) => &stored[k],
+                        None => {
+                            own = site_in_eigenbasis(&eigen.vectors, sector, site);
+                            &own
+                        }
+                    };
+                    let per_source = stored
+                        .iter()
+                        .map(|a_source| {
+                            let weighted = (a_site * a_source).dot(&phases);
+                            Array1::from_shape_fn(n_times, |c| {
+                                let cos_part = phases.column(c).dot(&weighted.column(c));
+                                let sin_part = phases
+                                    .column(c + n_times)
+                                    .dot(&weighted.column(c + n_times));
+                                cos_part + sin_part
+                            })
+                        })
+                        .collect();
+                    (site, per_source)
+                })
+                .collect();
+            for (site, per_source) in columns {
+                for (k, column) in per_source.into_iter().enumerate() {
+                    traces[group_index * group_size + k]
+                        .column_mut(site)
+                        .assign(&column);
+                }
+            }
         }
     }
     Ok(traces)
@@ -204,8 +242,11 @@ mod tests {
             let chain = SpinChain::new(&Couplings::from_matrix(hopping.clone()).unwrap(), 0.0)
                 .expect("valid");
             let times = [0.0, 0.4, 1.7, 3.1, 9.0];
-            for source in [0, sites / 2 - 1] {
-                let c = chain.correlations_exact(source, &times).expect("computes");
+            let sources = [0, sites / 2 - 1];
+            let all = chain
+                .correlations_exact_many(&sources, &times)
+                .expect("computes");
+            for (&source, c) in sources.iter().zip(&all) {
                 for (ti, &t) in times.iter().enumerate() {
                     let u2 = free_fermion_propagator_squared(&hopping, t);
                     for i in 0..sites {
@@ -258,9 +299,13 @@ mod tests {
         let chain =
             SpinChain::new(&Couplings::power_law(sites, 1.0, 1.2).unwrap(), 0.6).expect("valid");
         let times = [0.0, 0.8, 2.5, 6.0];
-        let columns: Vec<Array2<f64>> = (0..sites)
-            .map(|j| chain.correlations_exact(j, &times).expect("computes"))
-            .collect();
+        let sources: Vec<usize> = (0..sites).collect();
+        let columns = chain
+            .correlations_exact_many(&sources, &times)
+            .expect("computes");
+        // The one-source entry point gives the same numbers.
+        let single = chain.correlations_exact(7, &times).expect("computes");
+        assert!((&single - &columns[7]).iter().all(|d| d.abs() < 1e-14));
         for (ti, _) in times.iter().enumerate() {
             for j in 0..sites {
                 let sum: f64 = columns[j].row(ti).sum();
@@ -292,6 +337,100 @@ mod tests {
             for i in (0..sites).filter(|&i| i != source) {
                 let expected = t * t * couplings.get(i, source).powi(2);
                 assert!((c[(0, i)] - expected).abs() < 1e-5 * expected, "i = {i}");
+            }
+        }
+    }
+
+    /// (sites, α, Δ, source, [(t, C_{i,source}(t) for every i)]).
+    type FixtureCase = (usize, f64, f64, usize, &'static [(f64, &'static [f64])]);
+
+    #[test]
+    fn interacting_chains_match_a_kronecker_product_reference() {
+        // Fixture: scipy 1.17.1 / numpy 2.4.6, full 2^N Hamiltonian built from
+        // Kronecker products of Pauli matrices ((σˣσˣ + σʸσʸ)/2 per pair) and
+        // diagonalised densely with scipy.linalg.eigh; produced by
+        // `python3 tests/reference/bench_scipy_spin_chain.py --fixture`.
+        let cases: [FixtureCase; 2] = [
+            (
+                6,
+                1.0,
+                1.0,
+                2,
+                &[
+                    (
+                        0.5,
+                        &[
+                            0.06333091214540756,
+                            0.17503086298329132,
+                            0.49977536691603475,
+                            0.17180073945886187,
+                            0.06020524813777599,
+                            0.029856870358628378,
+                        ],
+                    ),
+                    (
+                        1.0,
+                        &[
+                            0.21201060896515153,
+                            0.215924333414624,
+                            0.07476724761140374,
+                            0.1992000073347552,
+                            0.1720008236210609,
+                            0.12609697905300435,
+                        ],
+                    ),
+                    (
+                        2.5,
+                        &[
+                            0.09506839018685943,
+                            0.1909800417680783,
+                            0.18941547285845145,
+                            0.2110666830512405,
+                            0.22194481571350602,
+                            0.091524596421864,
+                        ],
+                    ),
+                ],
+            ),
+            (
+                5,
+                1.5,
+                -0.6,
+                0,
+                &[
+                    (
+                        0.7,
+                        &[
+                            0.5569754796195816,
+                            0.34178162550277597,
+                            0.07225913748271998,
+                            0.020225090657673132,
+                            0.008758666737249125,
+                        ],
+                    ),
+                    (
+                        3.0,
+                        &[
+                            0.3064662043745928,
+                            0.27089859869732436,
+                            0.25423931877694816,
+                            0.1105852141176368,
+                            0.05781066403349775,
+                        ],
+                    ),
+                ],
+            ),
+        ];
+        for (sites, alpha, delta, source, rows) in cases {
+            let chain = SpinChain::new(&Couplings::power_law(sites, 1.0, alpha).unwrap(), delta)
+                .expect("valid");
+            let times: Vec<f64> = rows.iter().map(|(t, _)| *t).collect();
+            let c = chain.correlations_exact(source, &times).expect("computes");
+            for (ti, (t, expected)) in rows.iter().enumerate() {
+                for (i, &value) in expected.iter().enumerate() {
+                    let diff = (c[(ti, i)] - value).abs();
+                    assert!(diff < 1e-12, "N = {sites}, t = {t}, i = {i}: {diff}");
+                }
             }
         }
     }
@@ -338,26 +477,5 @@ mod tests {
             SpinChainError::TooLargeForExact { sites: 15, .. }
         ));
         assert!(err.to_string().contains("typicality"));
-    }
-}
-#[cfg(test)]
-mod scratch_timing {
-    use super::*;
-    use crate::model::couplings::Couplings;
-    #[test]
-    fn scratch_time_exact_n12() {
-        let chain = SpinChain::new(&Couplings::power_law(12, 1.0, 1.0).unwrap(), 0.0).unwrap();
-        let t0 = std::time::Instant::now();
-        let h = chain.dense_sector_hamiltonian(&Sector::new(12, 6));
-        let e = symmetric_eigen(&h).unwrap();
-        println!("eigen 924: {:?}", t0.elapsed());
-        let t0 = std::time::Instant::now();
-        let a = site_in_eigenbasis(&e.vectors, &Sector::new(12, 6), 3);
-        println!("one A_i: {:?} {}", t0.elapsed(), a[(0, 0)]);
-        let t0 = std::time::Instant::now();
-        let c = chain
-            .correlations_exact(5, &[0.5, 1.0, 2.0, 3.0, 4.0])
-            .unwrap();
-        println!("N=12 total: {:?} {}", t0.elapsed(), c[(0, 0)]);
     }
 }
