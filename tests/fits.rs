@@ -204,3 +204,109 @@ async fn a_fit_with_a_job_id_reports_progress_as_events() {
     }
     assert_eq!(seen, vec![0.0, 1.0]);
 }
+
+#[tokio::test]
+async fn theory_overlays_use_the_dataset_metadata_and_give_residuals() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    // A lattice-walk map written by the same engine, so the residual of the
+    // same model must vanish (to the 17 significant digits printed).
+    let walk = spreadscope_physics::model::lattice_walk::LatticeWalk::power_law(15, 1.0, 1.3)
+        .expect("walk");
+    let map = walk.to_correlation_map(7, &[0.5, 1.0, 2.0]).expect("map");
+    let csv = spreadscope::simulate::to_long_csv(&map, &["synthetic: true".into()]);
+    let (_, ds) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets?name=w.csv"),
+        csv,
+    )
+    .await;
+    let id = ds["id"].as_i64().expect("id");
+    let uri = format!("/api/s/{edit}/datasets/{id}/theory");
+    let (status, err) = send_json(
+        &app.router,
+        Method::POST,
+        &uri,
+        json!({"model": "lattice_walk"}).to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
+    assert!(
+        err["error"].as_str().expect("message").contains("sites"),
+        "{err}"
+    );
+    let meta = json!({"chain_length": 15, "source_site": 7, "alpha": 1.3});
+    send_json(
+        &app.router,
+        Method::PUT,
+        &format!("/api/s/{edit}/datasets/{id}/meta"),
+        meta.to_string(),
+    )
+    .await;
+    let (status, theory) = send_json(
+        &app.router,
+        Method::POST,
+        &uri,
+        json!({"model": "lattice_walk"}).to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{theory}");
+    let worst = theory["residual"]
+        .as_array()
+        .expect("rows")
+        .iter()
+        .flat_map(|r| {
+            r.as_array()
+                .expect("row")
+                .iter()
+                .map(|v| v.as_f64().expect("value").abs())
+        })
+        .fold(0.0f64, f64::max);
+    assert!(worst < 1e-15, "residual {worst}");
+    // Another α leaves a visible residual.
+    let (_, other) = send_json(
+        &app.router,
+        Method::POST,
+        &uri,
+        json!({"model": "lattice_walk", "alpha": 2.0}).to_string(),
+    )
+    .await;
+    let r = other["residual"][2][7].as_f64().expect("centre");
+    assert!(r.abs() > 1e-3, "residual at the source {r}");
+}
+
+#[tokio::test]
+async fn the_scaling_function_is_the_stable_density_in_collapse_units() {
+    let app = app().await;
+    let (_, view) = new_session(&app.router).await;
+    // μ = 1: y(u) = s/(π(s² + u²)) with s = D (Cauchy, DESIGN.md: z = 1 is a
+    // Lorentzian of half-width Dt, so D t^{…} scale s = D at unit time).
+    let (status, f) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/scaling-function?mu=1&D=0.5&u_min=-2&u_max=2&n=5"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{f}");
+    for (u, y) in f["u"]
+        .as_array()
+        .expect("u")
+        .iter()
+        .zip(f["f"].as_array().expect("f"))
+    {
+        let (u, y) = (u.as_f64().expect("u"), y.as_f64().expect("f"));
+        let cauchy = 0.5 / (std::f64::consts::PI * (0.25 + u * u));
+        assert!((y - cauchy).abs() < 1e-12 * cauchy, "u = {u}");
+    }
+    let (status, err) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/scaling-function?mu=1&D=-1&u_min=-2&u_max=2"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
+    assert!(err["error"].as_str().expect("message").contains("`D`"));
+}

@@ -7,17 +7,14 @@
 use std::fmt::Write as _;
 use std::path::PathBuf;
 
+use std::sync::atomic::AtomicBool;
+
 use clap::{Args, ValueEnum};
-use ndarray::Array2;
 use spreadscope_physics::CorrelationMap;
-use spreadscope_physics::model::couplings::Couplings;
-use spreadscope_physics::model::free_fermion::FreeFermionChain;
-use spreadscope_physics::model::lattice_walk::LatticeWalk;
-use spreadscope_physics::model::short_time::ShortTimeExpansion;
-use spreadscope_physics::model::spin_chain::{self, SpinChain};
 
 use crate::cli::CliError;
 use crate::service::CONVENTIONS;
+use crate::service::theory::{ModelSpec, SpinMethod, TheoryModel, model_map};
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum Model {
@@ -166,50 +163,58 @@ pub fn to_long_csv(map: &CorrelationMap, header: &[String]) -> String {
     out
 }
 
-fn input(e: impl std::fmt::Display) -> CliError {
-    CliError::Input(e.to_string())
-}
-
 /// Runs `simulate`.
 ///
 /// # Errors
 /// Bad options (exit 2) or a failure writing the file.
 pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     let times = parse_times(&args.times).map_err(CliError::Input)?;
-    if args.sites < 2 {
-        return Err(CliError::Input(format!(
-            "--sites {}: a chain needs at least 2 sites",
-            args.sites
-        )));
-    }
-    let source = args.source.unwrap_or((args.sites - 1) / 2);
-    if source >= args.sites {
-        return Err(CliError::Input(format!(
-            "--source {source}: outside a chain of {} sites",
-            args.sites
-        )));
-    }
-    let couplings = Couplings::power_law(args.sites, args.coupling, args.alpha)
-        .map_err(|e| CliError::Input(format!("--alpha/--coupling: {e}")))?;
-    let (map, how) = match args.model {
-        Model::LatticeWalk => {
-            let walk =
-                LatticeWalk::power_law(args.sites, args.gamma0, args.alpha).map_err(input)?;
-            let map = walk.to_correlation_map(source, &times).map_err(input)?;
-            (map, format!("lattice walk, γ0 = {}", args.gamma0))
-        }
-        Model::ShortTime => {
-            let expansion = ShortTimeExpansion::new(&couplings, args.delta).map_err(input)?;
-            let map = expansion
-                .to_correlation_map(source, &times, args.order)
-                .map_err(|e| CliError::Input(format!("--order {}: {e}", args.order)))?;
-            (
-                map,
-                format!("short-time expansion to order t^{}", args.order),
-            )
-        }
-        Model::SpinChain => spin_chain_map(args, &couplings, source, &times)?,
+    let source = args.source.unwrap_or(args.sites.saturating_sub(1) / 2);
+    let spec = ModelSpec {
+        model: match args.model {
+            Model::LatticeWalk => TheoryModel::LatticeWalk,
+            Model::SpinChain => TheoryModel::SpinChain,
+            Model::ShortTime => TheoryModel::ShortTime,
+        },
+        sites: args.sites,
+        source,
+        alpha: args.alpha,
+        coupling: args.coupling,
+        delta: args.delta,
+        gamma0: args.gamma0,
+        order: args.order,
+        method: match args.method {
+            Method::Auto => SpinMethod::Auto,
+            Method::Exact => SpinMethod::Exact,
+            Method::Typicality => SpinMethod::Typicality,
+        },
+        samples: args.samples,
+        seed: args.seed,
     };
+    let bar = indicatif::ProgressBar::new(1000);
+    bar.set_style(
+        indicatif::ProgressStyle::with_template("{elapsed_precise} [{bar:40}] {percent}%")
+            .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
+    );
+    let never = AtomicBool::new(false);
+    let (map, how) = model_map(
+        &spec,
+        &times,
+        &|f| bar.set_position((f * 1000.0) as u64),
+        &never,
+    )
+    .map_err(|e| {
+        // Messages that start with a parameter's name refer to its option.
+        let named = ["sites", "source", "alpha", "order"]
+            .iter()
+            .any(|p| e.starts_with(p));
+        CliError::Input(if named {
+            format!("--{e}")
+        } else {
+            format!("simulate: {e}")
+        })
+    })?;
+    bar.finish_and_clear();
     let alpha_text = if args.alpha.is_infinite() {
         "inf".to_string()
     } else {
@@ -234,65 +239,6 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     ];
     std::fs::write(&args.out, to_long_csv(&map, &header))
         .map_err(|e| CliError::Failure(format!("{}: {e}", args.out.display())))
-}
-
-fn spin_chain_map(
-    args: &SimulateArgs,
-    couplings: &Couplings,
-    source: usize,
-    times: &[f64],
-) -> Result<(CorrelationMap, String), CliError> {
-    let free = args.alpha.is_infinite() && args.delta.abs() < f64::MIN_POSITIVE;
-    let method = match args.method {
-        Method::Auto if free => None,
-        Method::Auto if args.sites <= spin_chain::MAX_EXACT_SITES => Some(Method::Exact),
-        Method::Auto => Some(Method::Typicality),
-        m => Some(m),
-    };
-    match method {
-        None => {
-            let chain = FreeFermionChain::new(couplings).map_err(input)?;
-            let map = chain.to_correlation_map(source, times).map_err(input)?;
-            Ok((
-                map,
-                "free fermions (exact for nearest neighbours at Δ = 0)".into(),
-            ))
-        }
-        Some(Method::Exact) => {
-            let chain = SpinChain::new(couplings, args.delta).map_err(input)?;
-            let values = chain.correlations_exact(source, times).map_err(input)?;
-            let map: Array2<f64> = values;
-            let map = spin_chain::to_correlation_map(&map, None, source, times).map_err(input)?;
-            Ok((map, "exact diagonalisation per magnetisation sector".into()))
-        }
-        Some(_) => {
-            let chain = SpinChain::new(couplings, args.delta).map_err(input)?;
-            let bar = indicatif::ProgressBar::new(1000);
-            bar.set_style(
-                indicatif::ProgressStyle::with_template(
-                    "{elapsed_precise} [{bar:40}] {percent}% typicality",
-                )
-                .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
-            );
-            let never = std::sync::atomic::AtomicBool::new(false);
-            let options = spin_chain::typicality::TypicalityOptions::new(args.samples, args.seed);
-            let result = chain
-                .correlations_typical_with(
-                    source,
-                    times,
-                    &options,
-                    &|f| bar.set_position((f * 1000.0) as u64),
-                    &never,
-                )
-                .map_err(input)?;
-            bar.finish_and_clear();
-            let map = result.to_correlation_map().map_err(input)?;
-            Ok((
-                map,
-                format!("dynamical typicality, {} random vectors", args.samples),
-            ))
-        }
-    }
 }
 
 #[cfg(test)]

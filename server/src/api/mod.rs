@@ -28,6 +28,7 @@ use crate::dataset::DatasetMeta;
 use crate::ingest::{Format, IngestOptions};
 use crate::service::fits::{FitRequest, Windows};
 use crate::service::log::{self as pinned, PinRequest};
+use crate::service::theory::TheoryRequest;
 use crate::service::{CONVENTIONS, PROGRAM_VERSION, Service, ServiceError};
 
 /// Settings of the HTTP layer.
@@ -73,6 +74,8 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
             get(collapse_quality),
         )
         .route("/s/{token}/jobs/{job}/cancel", post(cancel_job))
+        .route("/s/{token}/datasets/{id}/theory", post(run_theory))
+        .route("/s/{token}/scaling-function", get(scaling_function))
         .route("/s/{token}/report.html", get(get_report))
         .fallback(|| async { ApiError(ServiceError::NotFound) });
     Router::new()
@@ -477,6 +480,44 @@ async fn collapse_quality(
     Ok(Json(
         service.collapse_quality(&access, id, windows, q.z).await?,
     ))
+}
+
+async fn run_theory(
+    State(service): State<Service>,
+    Path((token, id)): Path<(String, i64)>,
+    body: Bytes,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let request: TheoryRequest = parse_json(&body, "theory request")?;
+    Ok(Json(service.theory(&access, id, request).await?))
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ScalingQuery {
+    mu: f64,
+    #[serde(rename = "D")]
+    d: f64,
+    u_min: f64,
+    u_max: f64,
+    n: Option<usize>,
+}
+
+async fn scaling_function(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+    query: Result<Query<ScalingQuery>, axum::extract::rejection::QueryRejection>,
+) -> ApiResult<Json<Value>> {
+    service.access(&token).await?;
+    let Query(q) =
+        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    Ok(Json(service.scaling_function(
+        q.mu,
+        q.d,
+        q.u_min,
+        q.u_max,
+        q.n.unwrap_or(201),
+    )?))
 }
 
 async fn cancel_job(

@@ -169,13 +169,13 @@ pub struct Jobs {
 }
 
 impl Jobs {
-    fn start(&self, session: i64, job: &str) -> Arc<AtomicBool> {
+    pub(super) fn start(&self, session: i64, job: &str) -> Arc<AtomicBool> {
         let flag = Arc::new(AtomicBool::new(false));
         self.lock().insert((session, job.to_string()), flag.clone());
         flag
     }
 
-    fn finish(&self, session: i64, job: &str) {
+    pub(super) fn finish(&self, session: i64, job: &str) {
         self.lock().remove(&(session, job.to_string()));
     }
 
