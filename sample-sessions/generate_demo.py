@@ -1,7 +1,7 @@
 #!/usr/bin/env python3
 """Regenerates the synthetic demo session in sample-sessions/demo/.
 
-Scenario (fictional): the "Tern Island" simulation group runs a 61-site chain
+Scenario (fictional): the "Tern Island" simulation group runs a 101-site chain
 with tunable power-law couplings J_ij = J/|i-j|^alpha and measures the
 infinite-temperature correlation C(x,t) from the centre site. The data are NOT
 measured: they are the classical lattice walk dP_i/dt = sum_j g_ij (P_j - P_i),
@@ -17,21 +17,22 @@ import os
 
 import numpy as np
 
-SITES = 61
-SOURCE = 30
+SITES = 101
+SOURCE = 50
 GAMMA0 = 1.0
-TIMES = np.geomspace(0.2, 30.0, 30)
 HERE = os.path.join(os.path.dirname(os.path.abspath(__file__)), "demo")
 
 RUNS = [
-    # file, alpha, repetitions per point, readout error, seed
-    ("run07-alpha0.9.csv", 0.9, 20000, 0.0, 7),
-    ("run11-alpha1.2-readout.csv", 1.2, 20000, 0.015, 11),
-    ("run15-alpha2.0.csv", 2.0, 20000, 0.0, 15),
+    # file, alpha, last time, repetitions per point, readout error, seed.
+    # Each run stops before its spread reaches the chain's ends: widths grow
+    # like t^(1/z) with z = 2 alpha - 1 (alpha < 3/2) or 2.
+    ("run07-alpha0.9.csv", 0.9, 6.0, 50000, 0.0, 7),
+    ("run11-alpha1.2-readout.csv", 1.2, 20.0, 50000, 0.015, 11),
+    ("run15-alpha2.0.csv", 2.0, 30.0, 50000, 0.0, 15),
 ]
 
 
-def walk(alpha):
+def walk(alpha, times):
     i = np.arange(SITES)
     r = np.abs(i[:, None] - i[None, :]).astype(float)
     with np.errstate(divide="ignore"):
@@ -41,14 +42,15 @@ def walk(alpha):
     start = np.zeros(SITES)
     start[SOURCE] = 1.0
     coeff = vectors.T @ start
-    return np.array([vectors @ (np.exp(values * t) * coeff) for t in TIMES])
+    return np.array([vectors @ (np.exp(values * t) * coeff) for t in times])
 
 
 def main():
     manifest = {"datasets": []}
-    for name, alpha, reps, readout, seed in RUNS:
+    for name, alpha, t_last, reps, readout, seed in RUNS:
         rng = np.random.default_rng(seed)
-        c = walk(alpha) * (1.0 - 2.0 * readout) ** 2
+        times = np.geomspace(0.1, t_last, 30)
+        c = walk(alpha, times) * (1.0 - 2.0 * readout) ** 2
         err = np.sqrt(np.clip(1.0 - c**2, 0.0, None) / reps)
         noisy = c + rng.normal(size=c.shape) * err
         lines = [
@@ -57,7 +59,7 @@ def main():
             f"gamma0 {GAMMA0}, {reps} repetitions, readout error {readout}, seed {seed}.",
             "x,t,C,err",
         ]
-        for ti, t in enumerate(TIMES):
+        for ti, t in enumerate(times):
             for i in range(SITES):
                 lines.append(f"{i - SOURCE},{float(t)!r},{float(noisy[ti, i])!r},{float(err[ti, i])!r}")
         with open(os.path.join(HERE, name), "w") as f:
