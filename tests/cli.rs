@@ -134,3 +134,106 @@ fn free_fermion_and_exact_paths_agree_for_a_nearest_neighbour_chain() {
         .fold(0.0f64, |m, &v| m.max(v));
     assert!(diff < 1e-10, "max difference {diff}");
 }
+
+#[test]
+fn analyze_refuses_every_bad_corpus_file_with_exit_2_naming_the_file() {
+    let expect = std::fs::read_to_string(crate::support::repo_path("tests/data/bad/expect.tsv"))
+        .expect("expect.tsv");
+    let mut failures = Vec::new();
+    for row in expect
+        .lines()
+        .filter(|l| !l.starts_with('#') && !l.trim().is_empty())
+    {
+        let cols: Vec<&str> = row.split('\t').collect();
+        let (file, line) = (cols[0], cols[1]);
+        let path = crate::support::repo_path(&format!("tests/data/bad/{file}"));
+        let out = spreadscope()
+            .args(["analyze", "--bootstrap", "0"])
+            .arg(&path)
+            .output()
+            .expect("runs");
+        let stderr = String::from_utf8_lossy(&out.stderr);
+        if out.status.code() != Some(2) {
+            failures.push(format!("{file}: exit {:?}", out.status.code()));
+        } else if !stderr.contains(file) {
+            failures.push(format!("{file}: message does not name the file: {stderr}"));
+        } else if stderr.trim().lines().count() != 1 {
+            failures.push(format!("{file}: not one line: {stderr}"));
+        } else if line != "-" && !stderr.contains(&format!("line {line}")) {
+            failures.push(format!("{file}: line {line} not named: {stderr}"));
+        }
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+
+#[test]
+fn analyze_json_has_the_documented_keys() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let path = dir.path().join("walk.csv");
+    let made = spreadscope()
+        .args([
+            "simulate",
+            "lattice-walk",
+            "--sites",
+            "61",
+            "--alpha",
+            "1.25",
+            "--times",
+            "0.5:8:16:log",
+            "--out",
+        ])
+        .arg(&path)
+        .output()
+        .expect("runs");
+    assert!(made.status.success());
+    let out = spreadscope()
+        .args(["analyze", "--json", "--bootstrap", "0", "--sites", "61"])
+        .arg(&path)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let v: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    for key in [
+        "/dataset/sites",
+        "/dataset/times",
+        "/dataset/sum_rule/min",
+        "/dataset/sum_rule/max",
+        "/autocorrelation/z",
+        "/autocorrelation/z_err",
+        "/autocorrelation/t_window",
+        "/collapse/z",
+        "/collapse/z_err",
+        "/collapse/quality",
+        "/profile/model",
+        "/profile/mu",
+        "/profile/mu_err",
+        "/profile/D",
+        "/profile/D_err",
+        "/profile/chi2_dof",
+        "/warnings",
+        "/lattice_walk/alpha",
+        "/lattice_walk/alpha_err",
+        "/lattice_walk/gamma0",
+        "/lattice_walk/gamma0_err",
+    ] {
+        assert!(v.pointer(key).is_some(), "missing {key}");
+    }
+    // Noise-free lattice-walk data of the same model: the walk fit finds
+    // the α it was made with (simulate's own parameters, no noise).
+    let alpha = v
+        .pointer("/lattice_walk/alpha")
+        .and_then(serde_json::Value::as_f64)
+        .expect("alpha");
+    assert!((alpha - 1.25).abs() < 1e-6, "alpha = {alpha}");
+    let human = spreadscope()
+        .args(["analyze", "--bootstrap", "0"])
+        .arg(&path)
+        .output()
+        .expect("runs");
+    assert!(human.status.success());
+    assert!(String::from_utf8_lossy(&human.stdout).contains("spreadscope"));
+}

@@ -310,3 +310,72 @@ async fn the_scaling_function_is_the_stable_density_in_collapse_units() {
     assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
     assert!(err["error"].as_str().expect("message").contains("`D`"));
 }
+
+#[tokio::test]
+async fn profile_lattice_walk_and_analysis_methods_run_through_the_api() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let uri = format!("/api/s/{edit}/datasets/{id}/fits");
+    let body = json!({"method": "profile", "options": {"bootstrap": 0}});
+    let (status, fit) = send_json(&app.router, Method::POST, &uri, body.to_string()).await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    // The data are the closed-form Gaussian with D = 0.5 (see gaussian_csv):
+    // sampled at integer x its lattice sum differs from the continuum only
+    // by terms of order exp(−π²·4Dt), far below the stated errors.
+    let d = fit["parameters"]["D"]["value"].as_f64().expect("D");
+    assert!((d - 0.5).abs() < 1e-3, "D = {d}");
+    assert_eq!(fit["quality"]["preferred"], "gaussian");
+
+    // A lattice walk written by the engine: the walk fit recovers (γ0, α).
+    let walk = spreadscope_physics::model::lattice_walk::LatticeWalk::power_law(31, 0.8, 1.1)
+        .expect("walk");
+    let map = walk
+        .to_correlation_map(15, &[0.5, 1.0, 2.0, 3.0])
+        .expect("map");
+    let csv = spreadscope::simulate::to_long_csv(&map, &[]);
+    let (_, ds) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets?name=w.csv"),
+        csv,
+    )
+    .await;
+    let wid = ds["id"].as_i64().expect("id");
+    let wuri = format!("/api/s/{edit}/datasets/{wid}/fits");
+    let (status, err) = send_json(
+        &app.router,
+        Method::POST,
+        &wuri,
+        json!({"method": "lattice_walk"}).to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
+    assert!(err["error"].as_str().expect("message").contains("sites"));
+    let body = json!({"method": "lattice_walk", "options": {"sites": 31, "source": 15}});
+    let (status, fit) = send_json(&app.router, Method::POST, &wuri, body.to_string()).await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    let alpha = fit["parameters"]["alpha"]["value"].as_f64().expect("alpha");
+    let gamma0 = fit["parameters"]["gamma0"]["value"]
+        .as_f64()
+        .expect("gamma0");
+    assert!(
+        (alpha - 1.1).abs() < 1e-6 && (gamma0 - 0.8).abs() < 1e-6,
+        "α = {alpha}, γ0 = {gamma0}"
+    );
+
+    let (status, all) = send_json(
+        &app.router,
+        Method::POST,
+        &uri,
+        json!({"method": "analysis", "options": {"bootstrap": 0}}).to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{all}");
+    assert!(
+        all["report"]["text"]
+            .as_str()
+            .is_some_and(|t| !t.is_empty())
+    );
+    assert!(all["parameters"]["z"]["value"].as_f64().is_some());
+}

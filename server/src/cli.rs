@@ -29,6 +29,8 @@ pub struct Cli {
 pub enum Command {
     /// Serve the dashboard (a fresh data directory starts with the demo session).
     Serve(ServeArgs),
+    /// Run every estimator on a correlation map and print the results.
+    Analyze(crate::analyze::AnalyzeArgs),
     /// Compute a reference model's C(x,t) and write it as long CSV `x,t,C[,err]`.
     Simulate(crate::simulate::SimulateArgs),
 }
@@ -64,6 +66,7 @@ pub fn run(cli: Cli) -> ExitCode {
     let result = match cli.command {
         Command::Serve(args) => serve(&args),
         Command::Simulate(args) => crate::simulate::run(&args),
+        Command::Analyze(args) => crate::analyze::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -5,6 +5,7 @@
 //! `cli` → `app` → `api` → `service` → {`store`, `ingest`} → `dataset` and
 //! the pure core `spreadscope_physics` (numerics → model → fit).
 
+pub mod analyze;
 pub mod api;
 pub mod app;
 pub mod cli;

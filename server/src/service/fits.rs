@@ -12,7 +12,13 @@ use std::sync::{Arc, Mutex};
 use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value, json};
 use spreadscope_physics::CorrelationMap;
+use spreadscope_physics::fit::analysis::{AnalysisOptions, analyze};
 use spreadscope_physics::fit::collapse::{CollapseOptions, CollapseQuality};
+use spreadscope_physics::fit::lattice_walk_fit::{LatticeWalkFitOptions, fit_lattice_walk};
+use spreadscope_physics::fit::profile::{
+    ProfileModel, ProfileOptions, compare_profiles, fit_profile,
+};
+use spreadscope_physics::fit::short_time_check::{ShortTimeOptions, check_short_time};
 use spreadscope_physics::fit::tail::{TimeWindow, fit_tail, local_exponent};
 use spreadscope_physics::fit::width::{WidthOptions, fit_width};
 
@@ -25,6 +31,21 @@ pub enum FitMethod {
     Tail,
     Width,
     Collapse,
+    Profile,
+    LatticeWalk,
+    ShortTime,
+    Analysis,
+}
+
+/// Which scaling function the profile fit uses.
+#[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ProfileChoice {
+    Gaussian,
+    Stable,
+    /// Both, with a model preference by AIC and BIC.
+    #[default]
+    Compare,
 }
 
 /// The space–time window a fit sees.
@@ -86,6 +107,18 @@ pub struct FitOptions {
     /// Seed of every random number.
     #[serde(default)]
     pub seed: u64,
+    /// Profile fit: Gaussian, stable or both.
+    #[serde(default)]
+    pub model: ProfileChoice,
+    /// Chain length and source (lattice-walk fit, analysis); default from
+    /// the dataset's metadata.
+    #[serde(default)]
+    pub sites: Option<usize>,
+    #[serde(default)]
+    pub source: Option<usize>,
+    /// Short-time check: order of the polynomial in t (2 or 4).
+    #[serde(default)]
+    pub order: Option<usize>,
 }
 
 fn half() -> f64 {
@@ -109,6 +142,10 @@ impl Default for FitOptions {
             z_max: z_high(),
             bootstrap: resamples(),
             seed: 0,
+            model: ProfileChoice::Compare,
+            sites: None,
+            source: None,
+            order: None,
         }
     }
 }
@@ -208,20 +245,53 @@ fn bad(e: impl std::fmt::Display) -> ServiceError {
     ServiceError::BadRequest(format!("fit: {e}"))
 }
 
-/// Runs one estimator on a windowed map. Pure apart from the cancel flag.
-fn compute(
-    method: FitMethod,
-    map: &CorrelationMap,
-    options: &FitOptions,
-    cancel: &AtomicBool,
-) -> ServiceResult<(
+type Computed = (
     BTreeMap<String, Parameter>,
     Map<String, Value>,
     String,
     Vec<String>,
     Value,
     Option<u64>,
-)> {
+);
+
+/// Everything a fit needs about its dataset.
+struct FitInput {
+    /// The map cut to the request's windows.
+    map: CorrelationMap,
+    /// The whole map (the analysis chooses its own windows inside the
+    /// request's bounds).
+    full: CorrelationMap,
+    windows: Windows,
+    meta: crate::dataset::DatasetMeta,
+}
+
+impl FitInput {
+    fn chain(&self, options: &FitOptions) -> ServiceResult<(usize, usize)> {
+        let sites = options
+            .sites
+            .or(self.meta.chain_length.map(|n| n as usize))
+            .ok_or_else(|| {
+                ServiceError::BadRequest(
+                    "field `options.sites`: give the chain length, or set it in the dataset's metadata"
+                        .into(),
+                )
+            })?;
+        let source = options
+            .source
+            .or(self.meta.source_site.map(|j| j as usize))
+            .unwrap_or(sites.saturating_sub(1) / 2);
+        Ok((sites, source))
+    }
+}
+
+/// Runs one estimator. Pure apart from the cancel flag.
+fn compute(
+    method: FitMethod,
+    input: &FitInput,
+    options: &FitOptions,
+    cancel: &AtomicBool,
+) -> ServiceResult<Computed> {
+    let map = &input.map;
     let window = TimeWindow::default();
     let mut quality = Map::new();
     let mut warnings = Vec::new();
@@ -313,7 +383,170 @@ fn compute(
                 Some(report.seed),
             ))
         }
+        FitMethod::Profile => profile(map, options),
+        FitMethod::LatticeWalk => {
+            let (sites, source) = input.chain(options)?;
+            let report =
+                fit_lattice_walk(map, &LatticeWalkFitOptions::new(sites, source)).map_err(bad)?;
+            parameters.insert("gamma0".into(), param(report.gamma0, report.gamma0_err));
+            parameters.insert("alpha".into(), param(report.alpha, report.alpha_err));
+            parameters.insert("z".into(), param(report.z, report.z_err));
+            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
+            if report.alpha_at_bound {
+                warnings.push("α ended on the edge of its allowed range: the fit did not find an interior optimum".into());
+            }
+            Ok((
+                parameters,
+                quality,
+                termination_text(report.termination),
+                warnings,
+                to_value(&report)?,
+                None,
+            ))
+        }
+        FitMethod::ShortTime => {
+            let report = check_short_time(
+                map,
+                &ShortTimeOptions {
+                    order: options.order,
+                    ..ShortTimeOptions::default()
+                },
+                None,
+            )
+            .map_err(bad)?;
+            parameters.insert(
+                "K2_sum".into(),
+                param(report.square_sum.value, report.square_sum.err),
+            );
+            if let Some(n) = report.neighbour {
+                parameters.insert("K01_sq".into(), param(n.value, n.err));
+            }
+            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
+            Ok((
+                parameters,
+                quality,
+                termination_text(report.termination),
+                warnings,
+                to_value(&report)?,
+                None,
+            ))
+        }
+        FitMethod::Analysis => {
+            let sites = options
+                .sites
+                .or(input.meta.chain_length.map(|n| n as usize));
+            let source = options
+                .source
+                .or(input.meta.source_site.map(|j| j as usize));
+            let report = analyze(
+                &input.full,
+                &AnalysisOptions {
+                    t_min: input.windows.t_min,
+                    t_max: input.windows.t_max,
+                    x_max: input.windows.x_max,
+                    sites,
+                    source: source.filter(|_| sites.is_some()),
+                    bootstrap: options.bootstrap,
+                    seed: options.seed,
+                },
+            )
+            .map_err(bad)?;
+            if let Some(c) = &report.collapse {
+                let v = to_value(c)?;
+                if let (Some(z), Some(e)) = (v["z"].as_f64(), v["z_err"].as_f64()) {
+                    parameters.insert("z".into(), param(z, e));
+                }
+                quality.insert("collapse_quality".into(), v["quality"].clone());
+            }
+            if let Some(p) = &report.profile {
+                let v = to_value(p)?;
+                if let (Some(d), Some(e)) = (v["D"].as_f64(), v["D_err"].as_f64()) {
+                    parameters.insert("D".into(), param(d, e));
+                }
+                if let (Some(m), Some(e)) = (v["mu"].as_f64(), v["mu_err"].as_f64()) {
+                    parameters.insert("mu".into(), param(m, e));
+                }
+                quality.insert("chi2_dof".into(), v["chi2_dof"].clone());
+            }
+            for w in &report.warnings {
+                warnings.push(
+                    to_value(w)?["message"]
+                        .as_str()
+                        .map_or_else(|| format!("{w:?}"), str::to_string),
+                );
+            }
+            let text = report.render_text();
+            let mut value = to_value(&report)?;
+            value["text"] = json!(text);
+            Ok((
+                parameters,
+                quality,
+                "completed".into(),
+                warnings,
+                value,
+                Some(options.seed),
+            ))
+        }
     }
+}
+
+fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed> {
+    let settings = ProfileOptions {
+        bootstrap: options.bootstrap,
+        seed: options.seed,
+        ..ProfileOptions::default()
+    };
+    let mut parameters = BTreeMap::new();
+    let mut quality = Map::new();
+    let mut warnings = Vec::new();
+    let single = |model| fit_profile(map, model, &settings).map_err(bad);
+    let (chosen, value) = match options.model {
+        ProfileChoice::Gaussian => {
+            let r = single(ProfileModel::Gaussian)?;
+            let v = to_value(&r)?;
+            (r, v)
+        }
+        ProfileChoice::Stable => {
+            let r = single(ProfileModel::Stable)?;
+            let v = to_value(&r)?;
+            (r, v)
+        }
+        ProfileChoice::Compare => {
+            let c = compare_profiles(map, &settings).map_err(bad)?;
+            quality.insert("preferred".into(), json!(c.preferred.name()));
+            quality.insert("delta_aic".into(), json!(c.delta_aic));
+            quality.insert("delta_bic".into(), json!(c.delta_bic));
+            let v = to_value(&c)?;
+            (c.preferred_report().clone(), v)
+        }
+    };
+    let mut d = param(chosen.d, chosen.d_err);
+    d.err_bootstrap = chosen.d_err_bootstrap;
+    parameters.insert("D".into(), d);
+    let mut mu = param(chosen.mu, chosen.mu_err);
+    mu.err_bootstrap = chosen.mu_err_bootstrap;
+    parameters.insert("mu".into(), mu.clone());
+    parameters.insert("z".into(), mu);
+    quality.insert("chi2_dof".into(), json!(chosen.chi2_dof));
+    quality.insert("model".into(), json!(chosen.model.name()));
+    if chosen.mu_at_bound {
+        warnings.push("μ ended on the edge of its allowed range".into());
+    }
+    if chosen.chi2_dof > 3.0 {
+        warnings.push(format!(
+            "χ²/dof = {:.2}: the {} profile does not describe the data within their errors; narrow the window",
+            chosen.chi2_dof,
+            chosen.model.name()
+        ));
+    }
+    Ok((
+        parameters,
+        quality,
+        termination_text(chosen.termination),
+        warnings,
+        value,
+        Some(options.seed),
+    ))
 }
 
 impl Service {
@@ -327,8 +560,13 @@ impl Service {
         dataset: i64,
         request: FitRequest,
     ) -> ServiceResult<FitResult> {
-        let (summary, map) = self.dataset(access, dataset).await?;
-        let windowed = request.windows.apply(&map)?;
+        let (summary, full) = self.dataset(access, dataset).await?;
+        let input = FitInput {
+            map: request.windows.apply(&full)?,
+            full,
+            windows: request.windows,
+            meta: summary.meta.clone(),
+        };
         let options = request.options.clone().unwrap_or_default();
         let session_id = access.session.id;
         let job = request.job.clone();
@@ -349,7 +587,7 @@ impl Service {
         let method = request.method;
         let flag = cancel.clone();
         let outcome = self
-            .heavy(move || compute(method, &windowed, &options, &flag))
+            .heavy(move || compute(method, &input, &options, &flag))
             .await;
         if let Some(id) = &job {
             self.jobs.finish(session_id, id);
