@@ -25,6 +25,9 @@ use std::time::{Duration, Instant};
 use ndarray::Array2;
 use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::fit::analysis::{AnalysisOptions, AnalysisReport, analyze};
+use spreadscope_physics::fit::collapse::{CollapseOptions, CollapseQuality};
+use spreadscope_physics::fit::lattice_walk_fit::{LatticeWalkFitOptions, fit_lattice_walk};
+use spreadscope_physics::fit::profile::{ProfileOptions, compare_profiles};
 use spreadscope_physics::model::lattice_walk::LatticeWalk;
 use spreadscope_physics::numerics::stats::{seeded_rng, standard_normal};
 
@@ -131,8 +134,66 @@ fn main() {
         analyze(&map, &chain_boot).expect("analysis runs")
     });
 
-    println!("\n{}", with_walk.render_text());
+    // The parts, on the scaling window of the plain run.
     let [t0, t1] = report.windows.t_window;
+    let window = map.window(Some(t0), Some(t1), None).expect("window");
+    let part = |label: &str, runs: usize, f: &dyn Fn()| {
+        f();
+        let mut samples: Vec<Duration> = (0..runs)
+            .map(|_| {
+                let start = Instant::now();
+                f();
+                start.elapsed()
+            })
+            .collect();
+        samples.sort();
+        println!(
+            "  part: {label:<38} median {:>9.2} ms",
+            samples[samples.len() / 2].as_secs_f64() * 1e3
+        );
+    };
+    for bootstrap in [0, 200] {
+        let options = ProfileOptions {
+            bootstrap,
+            seed: 7,
+            ..ProfileOptions::default()
+        };
+        part(&format!("profiles, {bootstrap} resamples"), 3, &|| {
+            std::hint::black_box(compare_profiles(&window, &options).expect("fits"));
+        });
+        let collapse = CollapseOptions {
+            bootstrap_resamples: bootstrap,
+            seed: 7,
+            ..CollapseOptions::default()
+        };
+        part(&format!("collapse, {bootstrap} resamples"), 3, &|| {
+            let q = CollapseQuality::new(&window).expect("collapse");
+            std::hint::black_box(q.best(&collapse).expect("collapse"));
+        });
+    }
+    {
+        use spreadscope_physics::fit::profile::{ProfileModel, fit_profile};
+        let r = fit_profile(&window, ProfileModel::Stable, &ProfileOptions::default()).expect("fit");
+        println!("SCRATCH stable iterations {} termination {:?} points {}", r.iterations, r.termination, r.points);
+        let r = fit_profile(&window, ProfileModel::Gaussian, &ProfileOptions::default()).expect("fit");
+        println!("SCRATCH gauss iterations {} termination {:?}", r.iterations, r.termination);
+        part("stable fit only", 5, &|| { std::hint::black_box(fit_profile(&window, ProfileModel::Stable, &ProfileOptions::default()).expect("fit")); });
+        part("gauss fit only", 5, &|| { std::hint::black_box(fit_profile(&window, ProfileModel::Gaussian, &ProfileOptions::default()).expect("fit")); });
+        let d = spreadscope_physics::model::stable::StableDensity::standard(1.1).expect("d");
+        part("StableDensity::standard", 50, &|| { std::hint::black_box(spreadscope_physics::model::stable::StableDensity::standard(std::hint::black_box(1.1)).expect("d")); });
+        let w = fit_lattice_walk(&map, &LatticeWalkFitOptions::new(SITES, SITES / 2)).expect("fits");
+        println!("SCRATCH walk iterations {} eig {} term {:?}", w.iterations, w.eigendecompositions, w.termination);
+        let a = ndarray::Array2::from_shape_fn((101, 101), |(i, j)| if i == j { -2.0 } else { 1.0 / (1.0 + (i as f64 - j as f64).abs()) });
+        part("eigen 101", 20, &|| { std::hint::black_box(spreadscope_physics::numerics::linalg::symmetric_eigen(&a).expect("eig")); });
+        part("1000 log_pdf", 50, &|| { for k in 0..1000 { std::hint::black_box(d.log_pdf(0.037 * k as f64)); } });
+    }
+    part("lattice-walk fit, whole map", 5, &|| {
+        std::hint::black_box(
+            fit_lattice_walk(&map, &LatticeWalkFitOptions::new(SITES, SITES / 2)).expect("fits"),
+        );
+    });
+
+    println!("\n{}", with_walk.render_text());
     let script = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
         .join("../../tests/reference/bench_scipy_analysis.py");
     let args = [
@@ -154,3 +215,6 @@ fn main() {
         println!("scipy side (slow: minutes): python3 {}", args.join(" "));
     }
 }
+
+#[allow(dead_code)]
+fn scratch() {}

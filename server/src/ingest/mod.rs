@@ -23,10 +23,12 @@
 //!   than a small multiple of its own size (grids are capped at
 //!   [`MAX_GRID_POINTS`] cells).
 
+pub mod couplings;
 mod csv;
 mod grid;
 mod json;
 mod npy;
+pub mod shots;
 
 use spreadscope_physics::CorrelationMap;
 

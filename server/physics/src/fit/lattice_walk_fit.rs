@@ -26,8 +26,9 @@
 //!   Φ_kl = (e^{λ_k τ} − e^{λ_l τ})/(λ_k − λ_l) (τ e^{λ_k τ} when equal),
 //!   τ = γ0 t — the Daleckii–Krein formula for the derivative of a matrix
 //!   function (Higham, "Functions of Matrices", SIAM 2008, Thm 3.11).
-//!   Φ is evaluated as τ e^{aτ} (1 − e^{−d})/d with a = max(λ_k, λ_l) and
-//!   d = |λ_k − λ_l| τ, which neither overflows nor cancels.
+//!   Φ is evaluated directly where |λ_k − λ_l|τ > 1e-3 (cancellation costs
+//!   at most ε/1e-3) and as τ e^{aτ} (1 − e^{−d})/d with a = max(λ_k, λ_l),
+//!   d = |λ_k − λ_l|τ for closer pairs, which neither overflows nor cancels.
 //! The tests compare both derivatives with central differences.
 //!
 //! # Errors of the parameters
@@ -308,6 +309,9 @@ impl LeastSquaresProblem for WalkProblem {
             return true;
         };
         let m = self.derivative_matrix(&sp);
+        let inverse_gaps: Vec<f64> = (0..n * n)
+            .map(|kl| 1.0 / (sp.values[kl / n] - sp.values[kl % n]))
+            .collect();
         let mut d_gamma = vec![0.0; n];
         let mut d_alpha = vec![0.0; n];
         let mut c_gamma = vec![0.0; n];
@@ -319,19 +323,23 @@ impl LeastSquaresProblem for WalkProblem {
                 growth[k] = (sp.values[k] * tau).exp();
                 c_gamma[k] = sp.values[k] * t * growth[k] * sp.source_row[k];
             }
-            // (Φ ∘ M) b with b = Vᵀ e_s; Φ in its stable form (module docs).
+            // (Φ ∘ M) b with b = Vᵀ e_s. Φ_kl = (E_k − E_l)/(λ_k − λ_l) loses
+            // at most ε/(|λ_k − λ_l|τ) to cancellation, so it is used when
+            // that gap exceeds 1e-3; closer pairs take the stable form of the
+            // module documentation.
             for k in 0..n {
                 let lk = sp.values[k];
                 let row = &m[k * n..(k + 1) * n];
+                let inverse = &inverse_gaps[k * n..(k + 1) * n];
                 let mut acc = 0.0;
                 for l in 0..n {
-                    let ll = sp.values[l];
-                    let (high, gap) = if lk >= ll {
-                        (growth[k], (lk - ll) * tau)
+                    let gap = lk - sp.values[l];
+                    let phi = if gap.abs() * tau > 1e-3 {
+                        (growth[k] - growth[l]) * inverse[l]
                     } else {
-                        (growth[l], (ll - lk) * tau)
+                        let high = if gap >= 0.0 { growth[k] } else { growth[l] };
+                        tau * high * expm1_over_x(-gap.abs() * tau)
                     };
-                    let phi = tau * high * expm1_over_x(-gap);
                     acc += phi * row[l] * sp.source_row[l];
                 }
                 // Φ was built with τ = γ0 t as the time: d exp(τG₁)/dα.

@@ -3,6 +3,7 @@
 
 pub mod analysis;
 pub mod collapse;
+pub mod couplings_fit;
 pub mod diagnosis;
 pub mod lattice_walk_fit;
 pub mod profile;

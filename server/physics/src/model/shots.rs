@@ -479,7 +479,9 @@ impl ShotRecords {
     #[must_use]
     pub fn counts(&self, state: usize, ti: usize) -> Option<(u32, &[u32])> {
         let list = self.cells.get(ti)?;
-        let k = list.binary_search_by_key(&state, |c| c.state as usize).ok()?;
+        let k = list
+            .binary_search_by_key(&state, |c| c.state as usize)
+            .ok()?;
         let cell = list[k];
         Some((cell.shots, &self.ups[cell.offset..cell.offset + self.sites]))
     }
@@ -913,7 +915,11 @@ fn evaluate(records: &ShotRecords, plan: &Plan, weights: &[u32]) -> Result<Evalu
     };
     let contrast = calibration.as_ref().map(|(a, b)| contrast(a, b));
     if let Some(b) = &contrast {
-        if let Some((i, v)) = b.iter().enumerate().find(|(_, v)| !(v.is_finite() && **v > 0.0)) {
+        if let Some((i, v)) = b
+            .iter()
+            .enumerate()
+            .find(|(_, v)| !(v.is_finite() && **v > 0.0))
+        {
             return Err(format!(
                 "site {i} has 1 − p(0|1) − p(1|0) = {v:.4} ≤ 0: its readout is no better \
                  than guessing and cannot be inverted"
@@ -1147,10 +1153,11 @@ pub fn estimate(
         })
         .collect();
     let departing: Vec<&SumRuleEstimate> = sum_rule.iter().filter(|s| s.departs).collect();
-    if let Some(worst) = departing
-        .iter()
-        .max_by(|a, b| ((a.sum - 1.0) / a.err).abs().total_cmp(&((b.sum - 1.0) / b.err).abs()))
-    {
+    if let Some(worst) = departing.iter().max_by(|a, b| {
+        ((a.sum - 1.0) / a.err)
+            .abs()
+            .total_cmp(&((b.sum - 1.0) / b.err).abs())
+    }) {
         warnings.push(format!(
             "the sum rule Σ_x C(x,t) departs from 1 by more than 3σ at {} of {} times \
              (worst: {:.4} ± {:.4} at t = {}); losses or uncorrected readout error?{}",
@@ -1257,89 +1264,86 @@ mod tests {
         static SAMPLED: OnceLock<Sampled> = OnceLock::new();
         SAMPLED.get_or_init(|| sample_with(20_240_611))
     }
+
     fn sample_with(seed: u64) -> Sampled {
-        {
-            // Sector bases and the position of every word in its sector.
-            let mut sectors: Vec<Vec<usize>> = vec![Vec::new(); N + 1];
-            let mut position = vec![0usize; 1 << N];
-            for word in 0..(1usize << N) {
-                let k = word.count_ones() as usize;
-                position[word] = sectors[k].len();
-                sectors[k].push(word);
-            }
-            // Eigendecomposition of every sector Hamiltonian: the amplitude
-            // between words differing by an exchange of neighbours is J = 1.
-            let eigen: Vec<_> = sectors
-                .iter()
-                .map(|basis| {
-                    let d = basis.len();
-                    let mut h = Array2::<f64>::zeros((d, d));
-                    for (a, &word) in basis.iter().enumerate() {
-                        for i in 0..N - 1 {
-                            let mask = (1 << i) | (1 << (i + 1));
-                            if (word & mask).count_ones() == 1 {
-                                h[(a, position[word ^ mask])] += 1.0;
-                            }
-                        }
-                    }
-                    symmetric_eigen(&h).expect("sector eigendecomposition")
-                })
-                .collect();
-            let mut rng = seeded_rng(seed);
-            let mut init = Vec::with_capacity(STATES);
-            let mut shots = Vec::with_capacity(STATES * TIMES.len() * SHOTS);
-            let mut probs = Vec::new();
-            for state in 0..STATES {
-                let word: usize = rng.random_range(0..(1usize << N));
-                init.push((0..N).map(|i| ((word >> i) & 1) as u8).collect::<Vec<_>>());
-                let k = word.count_ones() as usize;
-                let (basis, e) = (&sectors[k], &eigen[k]);
+        // Sector bases and the position of every word in its sector.
+        let mut sectors: Vec<Vec<usize>> = vec![Vec::new(); N + 1];
+        let mut position = vec![0usize; 1 << N];
+        for (word, place) in position.iter_mut().enumerate() {
+            let k = word.count_ones() as usize;
+            *place = sectors[k].len();
+            sectors[k].push(word);
+        }
+        // Eigendecomposition of every sector Hamiltonian: the amplitude
+        // between words differing by an exchange of neighbours is J = 1.
+        let eigen: Vec<_> = sectors
+            .iter()
+            .map(|basis| {
                 let d = basis.len();
-                let s = position[word];
-                for &t in &TIMES {
-                    // ψ_a(t) = Σ_n V_an e^{−iE_n t} V_sn.
-                    probs.clear();
-                    let phases: Vec<(f64, f64)> = (0..d)
-                        .map(|n| {
-                            let (sin, cos) = (e.values[n] * t).sin_cos();
-                            let c = e.vectors[(s, n)];
-                            (c * cos, -c * sin)
-                        })
-                        .collect();
-                    let mut total = 0.0;
-                    for a in 0..d {
-                        let (mut re, mut im) = (0.0, 0.0);
-                        for (n, &(pr, pi)) in phases.iter().enumerate() {
-                            let v = e.vectors[(a, n)];
-                            re += v * pr;
-                            im += v * pi;
+                let mut h = Array2::<f64>::zeros((d, d));
+                for (a, &word) in basis.iter().enumerate() {
+                    for i in 0..N - 1 {
+                        let mask = (1 << i) | (1 << (i + 1));
+                        if (word & mask).count_ones() == 1 {
+                            h[(a, position[word ^ mask])] += 1.0;
                         }
-                        total += re * re + im * im;
-                        probs.push(total);
-                    }
-                    for _ in 0..SHOTS {
-                        let u = rng.random::<f64>() * total;
-                        let a = probs.partition_point(|&c| c <= u).min(d - 1);
-                        let outcome = basis[a];
-                        shots.push(CleanShot {
-                            state,
-                            t,
-                            meas: (0..N).map(|i| ((outcome >> i) & 1) as u8).collect(),
-                        });
                     }
                 }
+                symmetric_eigen(&h).expect("sector eigendecomposition")
+            })
+            .collect();
+        let mut rng = seeded_rng(seed);
+        let mut init = Vec::with_capacity(STATES);
+        let mut shots = Vec::with_capacity(STATES * TIMES.len() * SHOTS);
+        let mut probs = Vec::new();
+        for state in 0..STATES {
+            let word: usize = rng.random_range(0..(1usize << N));
+            init.push((0..N).map(|i| ((word >> i) & 1) as u8).collect::<Vec<_>>());
+            let k = word.count_ones() as usize;
+            let (basis, e) = (&sectors[k], &eigen[k]);
+            let d = basis.len();
+            let s = position[word];
+            for &t in &TIMES {
+                // ψ_a(t) = Σ_n V_an e^{−iE_n t} V_sn.
+                probs.clear();
+                let phases: Vec<(f64, f64)> = (0..d)
+                    .map(|n| {
+                        let (sin, cos) = (e.values[n] * t).sin_cos();
+                        let c = e.vectors[(s, n)];
+                        (c * cos, -c * sin)
+                    })
+                    .collect();
+                let mut total = 0.0;
+                for a in 0..d {
+                    let (mut re, mut im) = (0.0, 0.0);
+                    for (n, &(pr, pi)) in phases.iter().enumerate() {
+                        let v = e.vectors[(a, n)];
+                        re += v * pr;
+                        im += v * pi;
+                    }
+                    total += re * re + im * im;
+                    probs.push(total);
+                }
+                for _ in 0..SHOTS {
+                    let u = rng.random::<f64>() * total;
+                    let a = probs.partition_point(|&c| c <= u).min(d - 1);
+                    let outcome = basis[a];
+                    shots.push(CleanShot {
+                        state,
+                        t,
+                        meas: (0..N).map(|i| ((outcome >> i) & 1) as u8).collect(),
+                    });
+                }
             }
-            Sampled { init, shots }
         }
+        Sampled { init, shots }
     }
 
     /// Free fermions (Jordan–Wigner, exact for nearest neighbours;
     /// PHYSICS.md): C_ij(t) = |U_ij(t)|², U = exp(−iKt), K the hopping
     /// matrix, here from the eigendecomposition of K.
     fn free_fermion(t: f64) -> Array2<f64> {
-        let k = Array2::from_shape_fn((N, N), |(i, j)| {
-            if i.abs_diff(j) == 1 { 1.0 } else { 0.0 }
-        });
+        let k = Array2::from_shape_fn((N, N), |(i, j)| if i.abs_diff(j) == 1 { 1.0 } else { 0.0 });
         let e = symmetric_eigen(&k).expect("hopping eigendecomposition");
         Array2::from_shape_fn((N, N), |(i, j)| {
             let (mut re, mut im) = (0.0, 0.0);
@@ -1370,14 +1374,23 @@ mod tests {
         seed: 1,
     };
 
-    fn records(noise: Noise) -> ShotRecords { records_from(sampled(), noise) }
+    fn records(noise: Noise) -> ShotRecords {
+        records_from(sampled(), noise)
+    }
+
     fn records_from(data: &Sampled, noise: Noise) -> ShotRecords {
         let mut rng = seeded_rng(noise.seed);
         let mut acc = ShotAccumulator::new(N).expect("valid size");
         for bits in &data.init {
             let recorded: Vec<u8> = bits
                 .iter()
-                .map(|&b| if rng.random::<f64>() < noise.prep { 1 - b } else { b })
+                .map(|&b| {
+                    if rng.random::<f64>() < noise.prep {
+                        1 - b
+                    } else {
+                        b
+                    }
+                })
                 .collect();
             acc.add_state(&recorded).expect("N bits");
         }
@@ -1436,27 +1449,6 @@ mod tests {
     }
 
     #[test]
-    fn zz_experiment() {
-        let mut ests = vec![]; let mut errs = vec![];
-        for seed in 0..24u64 {
-            let d = sample_with(1000 + seed);
-            let r = records_from(&d, CLEAN);
-            let mut o = options(SourceWindow::Central, Readout::None); o.replicates = 100;
-            let e = estimate(&r, &o).unwrap();
-            let (chi2, cov) = agreement(&e, 1.0);
-            eprintln!("seed {seed} chi2 {chi2} cov {cov}");
-            ests.push(e.pairs.values.clone()); errs.push(e.pairs.errors.clone());
-        }
-        let k = ests.len() as f64;
-        let (mut ve, mut vb) = (0.0, 0.0);
-        for ti in 1..TIMES.len() { let truth = free_fermion(TIMES[ti]); for i in 0..N { for j in 0..N {
-            let v: f64 = ests.iter().map(|a| (a[(ti,i,j)] - truth[(i,j)]).powi(2)).sum::<f64>() / k;
-            let b: f64 = errs.iter().map(|a| a[(ti,i,j)].powi(2)).sum::<f64>() / k;
-            ve += v; vb += b; }}}
-        eprintln!("empirical var {ve} bootstrap var {vb} ratio {}", ve / vb);
-    }
-
-    #[test]
     fn free_fermion_reference_obeys_its_sum_rule_and_two_site_limit() {
         // Σ_i |U_ij|² = 1 (unitarity) and U(0) = 1: checks of the reference
         // itself before it judges the estimator.
@@ -1473,11 +1465,18 @@ mod tests {
     fn estimator_agrees_with_free_fermions_within_its_errors() {
         // Truth: C_ij(t) = |U_ij(t)|² (Jordan–Wigner, PHYSICS.md), shots
         // sampled from exact many-body dynamics. Calibration: χ² per point
-        // near 1 and 1σ coverage near 68.3 % (common practice).
-        let estimate = estimate(&records(CLEAN), &options(SourceWindow::Central, Readout::None))
-            .expect("estimate");
+        // near 1 and 1σ coverage near 68.3 % (common practice). The 500
+        // points share states and are correlated, so one data set's χ² per
+        // point scatters: over 24 independent sampler seeds it ranged
+        // 0.78–1.28 (coverage 0.62–0.74), and the mean squared deviation
+        // from the truth was 0.997 of the mean bootstrap variance.
+        let estimate = estimate(
+            &records(CLEAN),
+            &options(SourceWindow::Central, Readout::None),
+        )
+        .expect("estimate");
         let (chi2, coverage) = agreement(&estimate, 1.0);
-        eprintln!("DBG chi2 {chi2} cov {coverage}"); assert!((0.75..1.3).contains(&chi2), "χ²/point = {chi2}");
+        assert!((0.75..1.3).contains(&chi2), "χ²/point = {chi2}");
         assert!((0.60..0.76).contains(&coverage), "coverage = {coverage}");
         assert_eq!(estimate.states_per_time, vec![STATES; TIMES.len()]);
         assert_eq!(
@@ -1526,7 +1525,7 @@ mod tests {
         // sources: the binomial spread of the coverage alone is ±0.06, so
         // the bounds are wider than for the pair tensor.
         let (chi2, coverage) = (chi2 / points as f64, covered as f64 / points as f64);
-        eprintln!("DBG map chi2 {chi2} cov {coverage}"); assert!((0.5..1.6).contains(&chi2), "χ²/point = {chi2}");
+        assert!((0.5..1.6).contains(&chi2), "χ²/point = {chi2}");
         assert!((0.53..0.85).contains(&coverage), "coverage = {coverage}");
         // Offsets −6..=6 over sources 3..=6: 4·13 pairs, of which
         // x = −6,−5,−4 lose 3,2,1 and x = 4,5,6 lose 1,2,3 (counted by hand).
@@ -1542,8 +1541,8 @@ mod tests {
             seed: 3,
         };
         let shots = records(noise);
-        let raw = estimate(&shots, &options(SourceWindow::Central, Readout::None))
-            .expect("estimate");
+        let raw =
+            estimate(&shots, &options(SourceWindow::Central, Readout::None)).expect("estimate");
         // Readout of the probe only: C is scaled by 1 − p01 − p10 = 0.88
         // (derivation in the module documentation), not by its square
         // 0.7744.
@@ -1571,30 +1570,32 @@ mod tests {
         )
         .expect("estimate");
         let (chi2, coverage) = agreement(&given, 1.0);
-        eprintln!("DBG chi2 {chi2} cov {coverage}"); assert!((0.75..1.3).contains(&chi2), "χ²/point = {chi2}");
+        assert!((0.75..1.3).contains(&chi2), "χ²/point = {chi2}");
         assert!((0.60..0.76).contains(&coverage), "coverage = {coverage}");
 
         let calibrated = estimate(
             &shots,
-            &options(SourceWindow::Central, Readout::FromTimeZero { per_site: true }),
+            &options(
+                SourceWindow::Central,
+                Readout::FromTimeZero { per_site: true },
+            ),
         )
         .expect("estimate");
         let (chi2, coverage) = agreement(&calibrated, 1.0);
-        eprintln!("DBG chi2 {chi2} cov {coverage}"); assert!((0.75..1.3).contains(&chi2), "χ²/point = {chi2}");
+        assert!((0.75..1.3).contains(&chi2), "χ²/point = {chi2}");
         assert!((0.60..0.78).contains(&coverage), "coverage = {coverage}");
         let applied = calibrated.readout.as_ref().expect("applied");
         assert_eq!(applied.origin, "time-zero shots");
         let errs = applied.p01_err.as_ref().expect("calibrated errors");
-        for i in 0..N {
+        for (i, (&p, &err)) in applied.p01.iter().zip(errs).enumerate() {
             // Each per-site rate rests on ~2400 t = 0 shots: σ ≈ 0.006.
-            assert!((applied.p01[i] - 0.08).abs() < 4.0 * errs[i], "site {i}");
-            assert!(errs[i] > 0.002 && errs[i] < 0.012, "σ = {}", errs[i]);
+            assert!((p - 0.08).abs() < 4.0 * err, "site {i}");
+            assert!(err > 0.002 && err < 0.012, "σ = {err}");
         }
     }
 
     #[test]
-    fn preparation_and_readout_error_give_the_squared_factor_and_time_zero_calibration_undoes_it()
-     {
+    fn preparation_and_readout_error_give_the_squared_factor_and_time_zero_calibration_undoes_it() {
         // Symmetric preparation and readout error e = 0.05: uncorrected C is
         // scaled by (1 − 2e)² = 0.81 (PHYSICS.md, common practice).
         let e = 0.05;
@@ -1604,17 +1605,20 @@ mod tests {
             prep: e,
             seed: 5,
         });
-        let raw = estimate(&shots, &options(SourceWindow::Central, Readout::None))
-            .expect("estimate");
+        let raw =
+            estimate(&shots, &options(SourceWindow::Central, Readout::None)).expect("estimate");
         let r = scale_factor(&raw);
         assert!((r - 0.81).abs() < 0.02, "scale {r}");
         let calibrated = estimate(
             &shots,
-            &options(SourceWindow::Central, Readout::FromTimeZero { per_site: false }),
+            &options(
+                SourceWindow::Central,
+                Readout::FromTimeZero { per_site: false },
+            ),
         )
         .expect("estimate");
         let (chi2, coverage) = agreement(&calibrated, 1.0);
-        eprintln!("DBG chi2 {chi2} cov {coverage}"); assert!((0.75..1.3).contains(&chi2), "χ²/point = {chi2}");
+        assert!((0.75..1.3).contains(&chi2), "χ²/point = {chi2}");
         assert!((0.60..0.78).contains(&coverage), "coverage = {coverage}");
         // The time-zero rate is the compound e(1−e)·2 = 0.095.
         let applied = calibrated.readout.expect("applied");
@@ -1659,12 +1663,16 @@ mod tests {
             let bits: Vec<u8> = (0..N).map(|_| u8::from(rng.random::<bool>())).collect();
             acc.add_state(&bits).expect("bits");
             for (m, &b) in meas.iter_mut().zip(&bits) {
-                *m = if b == 1 && rng.random::<f64>() < 0.2 { 0 } else { b };
+                *m = if b == 1 && rng.random::<f64>() < 0.2 {
+                    0
+                } else {
+                    b
+                };
             }
             acc.add_shot(k, 0.0, &meas).expect("valid");
         }
-        let est = estimate(&acc.finish().expect("shots"), &EstimateOptions::default())
-            .expect("estimate");
+        let est =
+            estimate(&acc.finish().expect("shots"), &EstimateOptions::default()).expect("estimate");
         let s = est.sum_rule[0];
         assert!(s.departs && (s.sum - 0.8).abs() < 3.5 * s.err, "{s:?}");
         assert!(
@@ -1704,10 +1712,10 @@ mod tests {
         )
         .expect("estimate");
         let want = [[0.4, -0.9], [-0.033333333333333375, 0.5333333333333334]];
-        for i in 0..2 {
-            for j in 0..2 {
+        for (i, row) in want.iter().enumerate() {
+            for (j, &w) in row.iter().enumerate() {
                 assert!(
-                    close(est.pairs.values[(0, i, j)], want[i][j], 1e-13, 1e-15),
+                    close(est.pairs.values[(0, i, j)], w, 1e-13, 1e-15),
                     "C[{i}][{j}] = {}",
                     est.pairs.values[(0, i, j)]
                 );
@@ -1730,8 +1738,7 @@ mod tests {
     fn readout_inversion_divides_by_the_contrast() {
         // Ĉ_corr = Ĉ_raw / (1 − p01 − p10) exactly, per probe site.
         let shots = records(CLEAN);
-        let raw = estimate(&shots, &options(SourceWindow::Central, Readout::None))
-            .expect("raw");
+        let raw = estimate(&shots, &options(SourceWindow::Central, Readout::None)).expect("raw");
         let p01: Vec<f64> = (0..N).map(|i| 0.01 * i as f64).collect();
         let p10: Vec<f64> = (0..N).map(|i| 0.02 + 0.005 * i as f64).collect();
         let corrected = estimate(
@@ -1747,7 +1754,12 @@ mod tests {
         .expect("corrected");
         for ((t, i, j), &v) in raw.pairs.values.indexed_iter() {
             let b = 1.0 - p01[i] - p10[i];
-            assert!(close(corrected.pairs.values[(t, i, j)], v / b, 1e-12, 1e-15));
+            assert!(close(
+                corrected.pairs.values[(t, i, j)],
+                v / b,
+                1e-12,
+                1e-15
+            ));
         }
         let applied = corrected.readout.expect("applied");
         assert!(applied.per_site && applied.p01_err.is_none());
@@ -1760,13 +1772,15 @@ mod tests {
         let build = |shots_per_cell: usize| {
             let mut acc = ShotAccumulator::new(7).expect("valid");
             for s in 0..5u8 {
-                acc.add_state(&[s & 1, 1, 0, 1, (s >> 1) & 1, 0, 1]).expect("7 bits");
+                acc.add_state(&[s & 1, 1, 0, 1, (s >> 1) & 1, 0, 1])
+                    .expect("7 bits");
             }
             for k in 0..shots_per_cell {
                 for s in 0..5 {
                     for t in [0.0, 0.5, 1.0] {
                         let bit = (k % 2) as u8;
-                        acc.add_shot(s, t, &[bit, 1, 0, bit, 1, 0, 0]).expect("valid");
+                        acc.add_shot(s, t, &[bit, 1, 0, bit, 1, 0, 0])
+                            .expect("valid");
                     }
                 }
             }
@@ -1803,7 +1817,11 @@ mod tests {
         let mut acc = ShotAccumulator::new(3).expect("valid");
         assert!(matches!(
             acc.add_state(b"01"),
-            Err(ShotError::Length { expected: 3, got: 2, .. })
+            Err(ShotError::Length {
+                expected: 3,
+                got: 2,
+                ..
+            })
         ));
         acc.add_state(b"011").expect("bits");
         assert!(matches!(
@@ -1822,7 +1840,10 @@ mod tests {
             acc.add_shot(0, 1.0, b"0000"),
             Err(ShotError::Length { .. })
         ));
-        assert!(matches!(ShotAccumulator::new(0), Err(ShotError::BadSites(0))));
+        assert!(matches!(
+            ShotAccumulator::new(0),
+            Err(ShotError::BadSites(0))
+        ));
         assert!(matches!(
             ShotAccumulator::new(3).expect("valid").finish(),
             Err(ShotError::NoShots)
@@ -1838,7 +1859,10 @@ mod tests {
             ShotError::SourceOutOfRange { .. }
         ));
         assert!(matches!(
-            bad(options(SourceWindow::Bulk { first: 5, last: 4 }, Readout::None)),
+            bad(options(
+                SourceWindow::Bulk { first: 5, last: 4 },
+                Readout::None
+            )),
             ShotError::BadWindow { .. }
         ));
         assert!(matches!(
@@ -1882,7 +1906,10 @@ mod tests {
         acc.add_shot(1, 2.0, b"11").expect("valid");
         let r = acc.finish().expect("shots");
         let err = estimate(&r, &EstimateOptions::default()).expect_err("one state at t = 1");
-        assert!(matches!(err, ShotError::TooFewStates { states: 1, .. }), "{err}");
+        assert!(
+            matches!(err, ShotError::TooFewStates { states: 1, .. }),
+            "{err}"
+        );
         let mut acc = ShotAccumulator::new(2).expect("valid");
         acc.add_state(b"01").expect("bits");
         acc.add_state(b"11").expect("bits");
@@ -1897,7 +1924,10 @@ mod tests {
             },
         )
         .expect_err("site 1 always up");
-        assert!(matches!(err, ShotError::ConstantSource { site: 1, .. }), "{err}");
+        assert!(
+            matches!(err, ShotError::ConstantSource { site: 1, .. }),
+            "{err}"
+        );
         let err = estimate(
             &r,
             &EstimateOptions {
