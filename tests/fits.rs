@@ -326,6 +326,20 @@ async fn profile_lattice_walk_and_analysis_methods_run_through_the_api() {
     let d = fit["parameters"]["D"]["value"].as_f64().expect("D");
     assert!((d - 0.5).abs() < 1e-3, "D = {d}");
     assert_eq!(fit["quality"]["preferred"], "gaussian");
+    // The overlay is the fitted Gaussian; the residual is data − model and
+    // small against the stated error 1e-4.
+    let worst = fit["overlay"]["residual"]["values"]
+        .as_array()
+        .expect("rows")
+        .iter()
+        .flat_map(|r| {
+            r.as_array()
+                .expect("row")
+                .iter()
+                .filter_map(serde_json::Value::as_f64)
+        })
+        .fold(0.0f64, |m, v| m.max(v.abs()));
+    assert!(worst < 1e-3, "largest residual {worst}");
 
     // A lattice walk written by the engine: the walk fit recovers (γ0, α).
     let walk = spreadscope_physics::model::lattice_walk::LatticeWalk::power_law(31, 0.8, 1.1)

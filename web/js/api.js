@@ -81,8 +81,155 @@
 
 /**
  * @typedef {object} ServerEvent
- * @property {string} kind "dataset-added" | "dataset-updated" (others are ignored)
+ * @property {string} kind "dataset-added", "dataset-updated", "log-added" or
+ *   "job-progress" (others are ignored)
  * @property {string | number} [id]
+ * @property {string} [job] job-progress: the id the page chose for its fit
+ * @property {number} [fraction] job-progress: done share, 0…1
+ */
+
+/**
+ * Fit windows. A missing or null bound means "no limit on this side".
+ * @typedef {object} FitWindows
+ * @property {number | null} [t_min]
+ * @property {number | null} [t_max]
+ * @property {number | null} [x_max]
+ */
+
+/** Estimators the fits route runs. */
+export const FIT_METHODS = /** @type {const} */ (["tail", "width", "collapse", "profile", "lattice_walk", "short_time", "analysis"]);
+
+/** @typedef {typeof FIT_METHODS[number]} FitMethod */
+
+/**
+ * One fitted parameter.
+ * @typedef {object} FitParameter
+ * @property {number} value
+ * @property {number | null} err one-sigma error from the fit's covariance (or the method's own rule)
+ * @property {number | null} [err_bootstrap] one-sigma error from the bootstrap, when it ran
+ */
+
+/**
+ * A fit result as the server returns it (and as it is pinned). `report`
+ * holds method-specific detail (collapse: `z_scan` [[z, S]…] and
+ * `z_interval`; tail: `local_exponent` [{t, value, err}]); `overlay` holds
+ * curves to draw: `tail` {t, C} on the autocorrelation, `profile`
+ * {x, t, C} on the slices, `residual` {x, t, values} as a map (data − fit).
+ * @typedef {object} FitResult
+ * @property {string} method
+ * @property {string | number} dataset
+ * @property {string} dataset_hash
+ * @property {FitWindows} windows
+ * @property {number | null} seed
+ * @property {Record<string, FitParameter>} parameters
+ * @property {Record<string, unknown>} quality chi2_dof, collapse_quality, …
+ * @property {unknown} termination why the estimator stopped
+ * @property {string[]} warnings
+ * @property {string} program_version
+ * @property {Record<string, unknown>} report
+ * @property {Record<string, unknown> | null} [overlay]
+ */
+
+/**
+ * @typedef {object} FitRequest
+ * @property {FitMethod} method
+ * @property {FitWindows} windows
+ * @property {Record<string, unknown>} options
+ * @property {string} [job] id for job-progress events and cancelling
+ */
+
+/**
+ * One pinned entry of the session log.
+ * @typedef {object} LogEntry
+ * @property {number} id
+ * @property {string} created_at
+ * @property {string} author
+ * @property {string} comment
+ * @property {number | null} dataset
+ * @property {string | null} dataset_name
+ * @property {string | null} dataset_hash
+ * @property {number | null} retracts id of the entry this one withdraws
+ * @property {FitResult | null} fit
+ * @property {string} program_version
+ */
+
+/**
+ * @typedef {object} PinRequest
+ * @property {string} author
+ * @property {string} comment
+ * @property {string | number} [dataset]
+ * @property {FitResult} [fit]
+ * @property {number} [retracts]
+ */
+
+/**
+ * @typedef {object} CollapseQualityAnswer
+ * @property {number} z
+ * @property {number | null} quality S(z); null or absent when no point had partners
+ * @property {number} n_points
+ */
+
+/**
+ * The model's rescaled profile y = t^{1/z} C at u = x / t^{1/z}.
+ * @typedef {object} ScalingFunction
+ * @property {number} mu
+ * @property {number} D
+ * @property {number[]} u
+ * @property {number[]} f
+ */
+
+/** Theory models of the theory route. */
+export const THEORY_MODELS = /** @type {const} */ (["lattice_walk", "spin_chain", "short_time"]);
+
+/** @typedef {typeof THEORY_MODELS[number]} TheoryModel */
+
+/**
+ * Missing chain data default to the dataset's metadata on the server.
+ * @typedef {object} TheoryRequest
+ * @property {TheoryModel} model
+ * @property {number} [gamma0]
+ * @property {number} [alpha]
+ * @property {number} [sites]
+ * @property {number} [source]
+ * @property {number} [delta]
+ * @property {number} [coupling]
+ * @property {number} [order]
+ * @property {"auto" | "exact" | "typicality"} [method] how spin-chain dynamics are computed
+ * @property {number} [samples] random vectors of the typicality method
+ * @property {number} [seed]
+ * @property {string} [job] id for job-progress events and cancelling
+ */
+
+/**
+ * A model computed on the dataset's grid.
+ * @typedef {object} TheoryResult
+ * @property {string} model
+ * @property {string} [method] how the server computed it, in words
+ * @property {Record<string, unknown>} parameters the values the server used
+ * @property {number[]} x
+ * @property {number[]} t
+ * @property {Array<Array<number | null>>} C times × sites
+ * @property {Array<Array<number | null>>} residual data − model, null where data are missing
+ * @property {Array<Array<number | null>> | null} [err] one-sigma errors of the model (a sampled method), when known
+ * @property {string[]} warnings
+ */
+
+/**
+ * One pinned fit with z or D, joined with its dataset's metadata.
+ * @typedef {object} ComparisonRow
+ * @property {number} entry
+ * @property {number | null} dataset
+ * @property {string | null} dataset_name
+ * @property {string | null} platform
+ * @property {number | null} alpha
+ * @property {string} method
+ * @property {number | null} z
+ * @property {number | null} z_err
+ * @property {number | null} D
+ * @property {number | null} D_err
+ * @property {string} created_at
+ * @property {string} author
+ * @property {boolean} [retracted]
  */
 
 /** Upload formats the server accepts. */
@@ -96,12 +243,14 @@ export class ApiError extends Error {
    * @param {number} status HTTP status, 0 when the server could not be reached
    * @param {string} message the server's `error` text or a description
    * @param {Problem[]} problems line-numbered problems of a rejected upload
+   * @param {number | null} [retryAfter] seconds the server asked to wait (429)
    */
-  constructor(status, message, problems) {
+  constructor(status, message, problems, retryAfter = null) {
     super(message);
     this.name = "ApiError";
     this.status = status;
     this.problems = problems;
+    this.retryAfter = retryAfter;
   }
 }
 
@@ -143,7 +292,8 @@ async function errorFrom(response) {
   if (!message) {
     message = response.status === 413 ? "the file is larger than the server accepts" : `HTTP ${response.status} ${response.statusText}`;
   }
-  return new ApiError(response.status, message, problems);
+  const wait = Number(response.headers.get("Retry-After"));
+  return new ApiError(response.status, message, problems, Number.isFinite(wait) && wait >= 0 ? wait : null);
 }
 
 /** Client for one session's part of the API. */
@@ -167,6 +317,8 @@ export class SessionApi {
         headers: { Accept: "application/json", ...(init?.headers ?? {}) },
       });
     } catch (e) {
+      // A request the page itself stopped is not a network failure.
+      if (e instanceof DOMException && e.name === "AbortError") throw e;
       throw new ApiError(0, `the server could not be reached (${String(e)})`, []);
     }
     if (!response.ok) throw await errorFrom(response);
@@ -223,6 +375,122 @@ export class SessionApi {
   /** @returns {string} URL of the server-sent event stream */
   eventsUrl() {
     return `${this.base}/events`;
+  }
+
+  /**
+   * @param {string} path
+   * @param {unknown} body
+   * @param {AbortSignal} [signal]
+   * @returns {Promise<any>}
+   */
+  postJson(path, body, signal) {
+    return this.request(path, {
+      method: "POST",
+      headers: { "Content-Type": "application/json" },
+      body: JSON.stringify(body),
+      ...(signal ? { signal } : {}),
+    });
+  }
+
+  /** @returns {Promise<LogEntry[]>} oldest first */
+  log() {
+    return this.request("/log");
+  }
+
+  /**
+   * Pins an entry (a fit, a note or a retraction).
+   * @param {PinRequest} entry
+   * @returns {Promise<LogEntry>}
+   */
+  pin(entry) {
+    return this.postJson("/log", entry);
+  }
+
+  /**
+   * Runs a fit on the server. Resolves when it is done; a cancelled fit
+   * rejects with status 409, a busy server with 429 and `retryAfter`.
+   * @param {string | number} id dataset
+   * @param {FitRequest} request
+   * @returns {Promise<FitResult>}
+   */
+  fit(id, request) {
+    return this.postJson(`/datasets/${encodeURIComponent(String(id))}/fits`, request);
+  }
+
+  /**
+   * @param {string} job the id given with the fit
+   * @returns {Promise<unknown>}
+   */
+  cancelJob(job) {
+    return this.postJson(`/jobs/${encodeURIComponent(job)}/cancel`, {});
+  }
+
+  /**
+   * The collapse quality S at one z (fast; called while a slider moves).
+   * @param {string | number} id
+   * @param {number} z
+   * @param {FitWindows} windows
+   * @returns {Promise<CollapseQualityAnswer>}
+   */
+  collapseQuality(id, z, windows) {
+    const query = new URLSearchParams({ z: String(z) });
+    appendWindows(query, windows);
+    return this.request(`/datasets/${encodeURIComponent(String(id))}/collapse-quality?${query}`);
+  }
+
+  /**
+   * @param {number} mu
+   * @param {number} D
+   * @param {number} uMin
+   * @param {number} uMax
+   * @param {number} n
+   * @returns {Promise<ScalingFunction>}
+   */
+  scalingFunction(mu, D, uMin, uMax, n) {
+    const query = new URLSearchParams({ mu: String(mu), D: String(D), u_min: String(uMin), u_max: String(uMax), n: String(n) });
+    return this.request(`/scaling-function?${query}`);
+  }
+
+  /**
+   * @param {string | number} id
+   * @param {TheoryRequest} request
+   * @param {AbortSignal} [signal]
+   * @returns {Promise<TheoryResult>}
+   */
+  theory(id, request, signal) {
+    return this.postJson(`/datasets/${encodeURIComponent(String(id))}/theory`, request, signal);
+  }
+
+  /** @returns {Promise<ComparisonRow[]>} */
+  comparison() {
+    return this.request("/comparison");
+  }
+
+  /** @returns {string} */
+  logCsvUrl() {
+    return `${this.base}/log.csv`;
+  }
+
+  /** @returns {string} */
+  logJsonUrl() {
+    return `${this.base}/log.json`;
+  }
+
+  /** @returns {string} */
+  reportUrl() {
+    return `${this.base}/report.html`;
+  }
+}
+
+/**
+ * Adds the set bounds of a window to a query string.
+ * @param {URLSearchParams} query
+ * @param {FitWindows} windows
+ */
+function appendWindows(query, windows) {
+  for (const key of /** @type {const} */ (["t_min", "t_max", "x_max"])) {
+    const v = windows[key];
+    if (v !== null && v !== undefined) query.set(key, String(v));
   }
 }
 

@@ -1,17 +1,31 @@
 // Entry point of the dashboard page `/s/{token}`. Owns the page's state (the
-// session, the dataset list, which dataset is chosen) and wires the other
-// modules together: api.js for the server, header.js, datasets.js,
-// metaform.js and views.js for the page. Live updates arrive as server-sent
-// events and refresh the list and the chosen dataset.
+// session, the dataset list, which dataset is chosen), the large-text
+// setting and the live event stream, and wires the other modules together:
+// api.js for the server, header.js, desk.js, datasets.js, metaform.js,
+// windows.js, views.js, collapse.js, residuals.js, compare.js, fits.js,
+// theory.js and log.js for the page. Live updates arrive as server-sent
+// events; after a dropped stream reconnects, everything is read again.
 
 import { ApiError, SessionApi, tokenFromLocation } from "./api.js";
+import { emit } from "./bus.js";
+import { wireCollapse } from "./collapse.js";
+import { wireCompare } from "./compare.js";
 import { byId, h } from "./dom.js";
 import { couplingLabel, renderDatasetList, wireUpload } from "./datasets.js";
+import { wireDesk } from "./desk.js";
+import { wireFitRunner } from "./fitrunner.js";
+import { wireFits } from "./fits.js";
 import { renderSession, setLiveState, wireCopyButtons } from "./header.js";
+import { wireLog } from "./log.js";
 import { fillMetaForm, wireMetaForm } from "./metaform.js";
 import { formatNumber } from "./format.js";
-import { plottingAvailable } from "./plot.js";
-import { showDataset, showNothing, wireViews } from "./views.js";
+import { plottingAvailable, setTextScale } from "./plot.js";
+import { largeText, setLargeText } from "./prefs.js";
+import { wireResiduals } from "./residuals.js";
+import { wireTheory } from "./theory.js";
+import { readViewState, writeViewState } from "./urlstate.js";
+import { VIEW_NAMES, activate, showDataset, showNothing, wireViews } from "./views.js";
+import { initWindows, setWindowTimeUnit, wireWindows } from "./windows.js";
 
 /** @typedef {import("./api.js").DatasetSummary} DatasetSummary */
 /** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
@@ -48,8 +62,7 @@ function describe(e) {
 
 /** The dataset named in the address (`#dataset=ID`), if any. */
 function idFromHash() {
-  const params = new URLSearchParams(window.location.hash.replace(/^#/, ""));
-  return params.get("dataset");
+  return readViewState().dataset;
 }
 
 /**
@@ -57,9 +70,28 @@ function idFromHash() {
  * @param {string} id
  */
 function writeHash(id) {
-  const url = new URL(window.location.href);
-  url.hash = new URLSearchParams({ dataset: id }).toString();
-  window.history.replaceState(null, "", url);
+  writeViewState({ dataset: id });
+}
+
+/**
+ * Switches large lettering on or off, for the page and the plots.
+ * @param {boolean} on
+ */
+function applyLargeText(on) {
+  document.documentElement.classList.toggle("large-text", on);
+  const button = byId("large-text", HTMLButtonElement);
+  button.setAttribute("aria-pressed", on ? "true" : "false");
+  setTextScale(on ? 1.3 : 1);
+}
+
+function wireLargeText() {
+  applyLargeText(largeText());
+  byId("large-text", HTMLButtonElement).addEventListener("click", () => {
+    const on = !document.documentElement.classList.contains("large-text");
+    setLargeText(on);
+    applyLargeText(on);
+    emit("textscale", on ? 1.3 : 1);
+  });
 }
 
 /**
@@ -129,6 +161,7 @@ async function select(id) {
     const detail = await api.dataset(id);
     if (seq !== app.loadSeq) return;
     renderFacts(detail);
+    setWindowTimeUnit(detail.meta.time_unit);
     if (app.canEdit) {
       byId("meta-dataset-name", HTMLElement).textContent = `of “${detail.name}”`;
       fillMetaForm(detail.meta, { force: changed });
@@ -186,6 +219,7 @@ function followEvents() {
       missedEvents = false;
       void refreshList();
       if (app.selectedId !== null) void select(app.selectedId);
+      emit("log", { reconnected: true });
     }
   });
   source.addEventListener("error", () => {
@@ -205,12 +239,21 @@ function followEvents() {
     } else if (event.kind === "dataset-updated") {
       void refreshList();
       if (event.id !== undefined && String(event.id) === app.selectedId) void select(app.selectedId);
+    } else if (event.kind === "log-added") {
+      emit("log", { reconnected: false });
+    } else if (event.kind === "job-progress" && typeof event.job === "string" && typeof event.fraction === "number") {
+      emit("progress", { job: event.job, fraction: event.fraction });
     }
   });
 }
 
 async function main() {
+  const initial = readViewState();
   wireCopyButtons();
+  wireLargeText();
+  wireDesk();
+  initWindows({ t_min: initial.t_min, t_max: initial.t_max, x_max: initial.x_max });
+  wireWindows();
   wireViews();
   if (!plottingAvailable()) {
     fatal("The plotting library did not load, so no plot can be drawn. Reload the page; if it persists, the server's assets are incomplete.");
@@ -235,6 +278,15 @@ async function main() {
   }
   byId("upload-panel", HTMLElement).hidden = !app.canEdit;
   document.body.dataset.access = app.canEdit ? "edit" : "view";
+  wireFitRunner(api);
+  wireCollapse(api, { z: initial.z, D: initial.D });
+  wireResiduals();
+  wireCompare(api);
+  wireFits(api, app.canEdit);
+  wireTheory(api);
+  wireLog(api, app.canEdit);
+  const view = VIEW_NAMES.find((v) => v === initial.view);
+  if (view !== undefined) activate(view);
   if (app.canEdit) {
     wireUpload(api, (summary) => {
       void refreshList().then(() => select(String(summary.id)));

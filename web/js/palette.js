@@ -133,3 +133,72 @@ export function orderedSeriesColours(n) {
   }
   return colours;
 }
+
+/**
+ * The time ramp of the collapse view as a Plotly colour scale: the same
+ * indigo–magenta–amber arc as `orderedSeriesColours`, sampled so that a
+ * colour bar matches the lines drawn with `timeColour`.
+ * @param {number} [stops]
+ * @returns {Array<[number, string]>}
+ */
+export function timeColourScale(stops = 11) {
+  /** @type {Array<[number, string]>} */
+  const scale = [];
+  for (let i = 0; i < stops; i += 1) {
+    const s = i / (stops - 1);
+    scale.push([s, timeColour(s)]);
+  }
+  return scale;
+}
+
+/**
+ * A colour on the time ramp.
+ * @param {number} s position 0 (earliest) … 1 (latest)
+ * @returns {string}
+ */
+export function timeColour(s) {
+  const c = Math.min(1, Math.max(0, s));
+  return oklchHex(0.32 + 0.32 * c, 0.16, (275 + 150 * c) % 360);
+}
+
+/** Ends of the diverging ramp in OKLCh: cool below the model, warm above. */
+const COOL = /** @type {Triple} */ ([0.42, 0.12, 235]);
+const WARM = /** @type {Triple} */ ([0.45, 0.15, 40]);
+const MIDDLE_L = 0.975;
+
+/**
+ * The diverging ramp of difference maps ("slate to brick"): from a dark
+ * slate blue through near-white to a brick red, lightness symmetric about the
+ * middle so that equal |data − model| reads equally strong on either side,
+ * and the two hues on the blue–orange axis that red–green deficient readers
+ * still tell apart.
+ * @param {number} [stops] odd number of stops, at least 3
+ * @returns {Array<[number, string]>}
+ */
+export function divergingColourScale(stops = 17) {
+  /** @type {Array<[number, string]>} */
+  const scale = [];
+  const half = (stops - 1) / 2;
+  for (let i = 0; i < stops; i += 1) {
+    const s = i / (stops - 1);
+    const k = Math.abs(i - half) / half; // 0 in the middle, 1 at the ends
+    const end = i < half ? COOL : WARM;
+    const L = MIDDLE_L + (end[0] - MIDDLE_L) * k;
+    const C = end[1] * Math.pow(k, 0.8);
+    scale.push([s, oklchHex(L, C, end[2])]);
+  }
+  return scale;
+}
+
+/**
+ * Marker colours of the estimators in the cross-run plots, picked far apart
+ * in hue at one lightness so that none dominates.
+ * @param {number} n
+ * @returns {string[]}
+ */
+export function categoryColours(n) {
+  /** @type {string[]} */
+  const out = [];
+  for (let i = 0; i < n; i += 1) out.push(oklchHex(0.5, 0.14, (250 + (i * 137.5)) % 360));
+  return out;
+}

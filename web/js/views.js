@@ -1,27 +1,53 @@
-// The four views of the chosen dataset (space–time map, time slices,
-// autocorrelation, sum rule): the tab strip, the one-or-all-four layout, the
-// per-view controls, and handing the server's arrays to plot.js. Every number
-// drawn comes from the DatasetDetail the server sent; this module only picks
-// rows and passes display choices along.
+// The views of the chosen dataset: the tab strip, the one-or-four layout,
+// the controls of the four data views (space–time map, time slices,
+// autocorrelation, sum rule), the overlays drawn on them (fitted curves and
+// theory), the fit windows shaded on them and chosen by dragging across
+// them, and the figure downloads. The collapse, residual and cross-run views
+// register themselves here and draw their own figures. Every number drawn
+// comes from the server; this module only picks rows and passes display
+// choices along.
 
+import { emit, on } from "./bus.js";
 import { byId, h } from "./dom.js";
 import { formatNumber } from "./format.js";
 import {
   clearPlot,
+  downloadFigure,
   drawAutocorrelation,
   drawMap,
   drawSlices,
   drawSumRule,
   fitToContainer,
+  isDrawn,
+  onRangeSelect,
 } from "./plot.js";
+import { writeViewState } from "./urlstate.js";
+import { getWindows, setWindows } from "./windows.js";
 
 /** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
-/** @typedef {"map" | "slices" | "auto" | "sum"} ViewName */
+/** @typedef {import("./api.js").FitResult} FitResult */
+/** @typedef {import("./api.js").TheoryResult} TheoryResult */
+/** @typedef {"map" | "slices" | "auto" | "sum" | "collapse" | "residual" | "compare"} ViewName */
+/** @typedef {import("./plot.js").SliceOverlay} SliceOverlay */
+/** @typedef {import("./plot.js").LineOverlay} LineOverlay */
 
-const VIEW_NAMES = /** @type {const} */ (["map", "slices", "auto", "sum"]);
+export const VIEW_NAMES = /** @type {const} */ (["map", "slices", "auto", "sum", "collapse", "residual", "compare"]);
+/** The views that "four at once" shows. */
+const GRID_VIEWS = /** @type {const} */ (["map", "slices", "auto", "sum"]);
+/** @typedef {typeof GRID_VIEWS[number]} DataView */
 
 /** How many slices "Spread 5" and a fresh dataset show. */
 const DEFAULT_SLICES = 5;
+
+/**
+ * A view drawn by another module.
+ * @typedef {object} RegisteredView
+ * @property {() => void} shown called when the view becomes visible or its size changes
+ * @property {() => HTMLElement[]} figures the drawn figures, for downloads
+ */
+
+/** @type {Partial<Record<ViewName, RegisteredView>>} */
+const registered = {};
 
 /** What the person chose, kept across reloads of the same dataset. */
 const state = {
@@ -38,8 +64,16 @@ const state = {
   sliceIdx: [],
   /** @type {ViewName} */
   active: "map",
-  /** Whether all four views are shown at once. */
+  /** Whether four views are shown at once. */
   grid: false,
+  /** What a drag does on the autocorrelation and the slices. @type {"select" | "zoom"} */
+  dragAuto: "select",
+  /** @type {"select" | "zoom"} */
+  dragSlices: "select",
+  /** The latest fit of the chosen dataset with a curve for each view. @type {{tail: LineOverlay | null, profile: SliceOverlay | null}} */
+  fitOverlay: { tail: null, profile: null },
+  /** @type {TheoryResult | null} */
+  theory: null,
 };
 
 /**
@@ -55,7 +89,7 @@ function plotEl(view) {
  * @param {ViewName} view
  * @param {string | null} message
  */
-function note(view, message) {
+export function note(view, message) {
   const el = byId(`note-${view}`, HTMLElement);
   el.textContent = message ?? "";
   el.hidden = message === null;
@@ -105,6 +139,11 @@ export function timeAxisFor(t) {
   return spread < 0.25 * mean ? "log" : "linear";
 }
 
+/** @returns {"linear" | "log"} the time axis chosen for the map and the sum rule */
+export function currentTimeAxis() {
+  return state.timeAxis;
+}
+
 /**
  * Rows of the map that a time axis can show: a log axis has no place for
  * t ≤ 0, so those rows are left out (and the caption says so).
@@ -133,7 +172,7 @@ function timeCaption(view, left, what) {
  * @param {string} axes
  * @returns {string}
  */
-function revision(d, axes) {
+export function revision(d, axes) {
   return `${d.id}|${d.content_hash}|${axes}`;
 }
 
@@ -142,7 +181,7 @@ function revision(d, axes) {
  * @param {ViewName} view
  * @param {unknown} error
  */
-function drawFailed(view, error) {
+export function drawFailed(view, error) {
   note(view, `This view could not be drawn: ${error instanceof Error ? error.message : String(error)}`);
 }
 
@@ -169,7 +208,44 @@ function drawMapView() {
     floor: state.floor,
     tScale: state.timeAxis,
     revision: revision(d, state.timeAxis),
+    windows: getWindows(),
   }).catch((e) => drawFailed("map", e));
+}
+
+/**
+ * The overlays of the slice view: the latest fitted profile and the theory.
+ * @param {DatasetDetail} d
+ * @returns {SliceOverlay[]}
+ */
+function sliceOverlays(d) {
+  /** @type {SliceOverlay[]} */
+  const out = [];
+  if (state.fitOverlay.profile) out.push(state.fitOverlay.profile);
+  const th = state.theory;
+  if (th) {
+    out.push({
+      label: `${theoryName(th.model)} (dashed)`,
+      kind: "theory",
+      x: th.x,
+      curves: state.sliceIdx.flatMap((i) => {
+        const t = d.t[i];
+        if (t === undefined) return [];
+        const row = th.t.findIndex((tt) => Math.abs(tt - t) <= 1e-9 * Math.max(1, Math.abs(t)));
+        const C = row >= 0 ? th.C[row] : undefined;
+        return C ? [{ t, C }] : [];
+      }),
+    });
+  }
+  return out;
+}
+
+/**
+ * Words for a theory model's name.
+ * @param {string} model
+ * @returns {string}
+ */
+export function theoryName(model) {
+  return { lattice_walk: "lattice walk", spin_chain: "spin-chain dynamics", short_time: "short-time expansion" }[model] ?? model;
 }
 
 function drawSlicesView() {
@@ -187,12 +263,19 @@ function drawSlicesView() {
       C: d.C[i] ?? [],
       err: d.err ? (d.err[i] ?? null) : null,
     }));
+  const overlays = sliceOverlays(d);
+  byId("caption-slices", HTMLElement).textContent = overlays.length > 0
+    ? `Over the data: ${overlays.map((o) => o.label).join("; ")}.`
+    : "";
   drawSlices(plotEl("slices"), {
     x: d.x,
     series,
     timeUnit: d.meta.time_unit,
     yScale: state.sliceY,
     revision: revision(d, state.sliceY),
+    overlays,
+    windows: getWindows(),
+    dragmode: state.dragSlices,
   }).catch((e) => drawFailed("slices", e));
 }
 
@@ -214,10 +297,21 @@ function drawAutoView() {
     return;
   }
   note("auto", null);
+  /** @type {LineOverlay[]} */
+  const overlays = [];
+  if (state.fitOverlay.tail) overlays.push(state.fitOverlay.tail);
+  const th = state.theory;
+  if (th) {
+    const j = th.x.indexOf(0);
+    if (j >= 0) overlays.push({ label: theoryName(th.model), kind: "theory", t: th.t, C: th.C.map((row) => row[j] ?? null) });
+  }
   drawAutocorrelation(plotEl("auto"), {
     points,
     timeUnit: d.meta.time_unit,
     revision: revision(d, "log"),
+    overlays,
+    windows: getWindows(),
+    dragmode: state.dragAuto,
   }).catch((e) => drawFailed("auto", e));
 }
 
@@ -254,7 +348,7 @@ function drawSumView() {
   );
 }
 
-/** @type {Record<ViewName, () => void>} */
+/** @type {Record<DataView, () => void>} */
 const DRAW = {
   map: drawMapView,
   slices: drawSlicesView,
@@ -279,12 +373,12 @@ function fillTimeOptions() {
       return option;
     }),
   );
-  select.size = Math.min(4, Math.max(2, d.t.length));
+  select.size = Math.min(3, Math.max(2, d.t.length));
 }
 
 /**
- * Shows a dataset in all four views. Display choices survive when the same
- * dataset comes back (for example after its metadata changed).
+ * Shows a dataset in the four data views. Display choices survive when the
+ * same dataset comes back (for example after its metadata changed).
  * @param {DatasetDetail} detail
  */
 export function showDataset(detail) {
@@ -293,10 +387,13 @@ export function showDataset(detail) {
   if (!same) {
     state.sliceIdx = spreadIndices(detail.t, DEFAULT_SLICES);
     state.timeAxis = timeAxisFor(detail.t);
+    state.fitOverlay = { tail: null, profile: null };
+    state.theory = null;
     syncTimeAxisRadios();
   }
   fillTimeOptions();
-  for (const view of VIEW_NAMES) DRAW[view]();
+  for (const view of GRID_VIEWS) DRAW[view]();
+  emit("dataset", detail);
 }
 
 /**
@@ -306,24 +403,78 @@ export function showDataset(detail) {
 export function showNothing(message) {
   state.detail = null;
   fillTimeOptions();
-  for (const view of VIEW_NAMES) note(view, message);
+  for (const view of VIEW_NAMES) {
+    if (view !== "compare") note(view, message);
+  }
+  emit("dataset", null);
+}
+
+/**
+ * Lets another module own a view's figure.
+ * @param {ViewName} view
+ * @param {RegisteredView} handlers
+ */
+export function registerView(view, handlers) {
+  registered[view] = handlers;
+}
+
+/** @returns {ViewName} */
+export function activeView() {
+  return state.active;
 }
 
 /**
  * @param {ViewName} view
+ * @returns {boolean} whether the view is on screen
+ */
+export function isVisible(view) {
+  if (state.grid) return (/** @type {readonly string[]} */ (GRID_VIEWS)).includes(view);
+  return state.active === view;
+}
+
+/**
+ * Shows one view. A view outside the four-at-once set ends that layout.
+ * @param {ViewName} view
  * @param {{focus?: boolean}} [options]
  */
-function activate(view, options = {}) {
+export function activate(view, options = {}) {
   state.active = view;
+  if (state.grid && !(/** @type {readonly string[]} */ (GRID_VIEWS)).includes(view)) setGrid(false);
   for (const name of VIEW_NAMES) {
     const tab = byId(`tab-${name}`, HTMLButtonElement);
-    const on = name === view;
-    tab.setAttribute("aria-selected", on ? "true" : "false");
-    tab.tabIndex = on ? 0 : -1;
-    byId(`panel-${name}`, HTMLElement).classList.toggle("is-active", on);
-    if (on && options.focus) tab.focus();
+    const isOn = name === view;
+    tab.setAttribute("aria-selected", isOn ? "true" : "false");
+    tab.tabIndex = isOn ? 0 : -1;
+    byId(`panel-${name}`, HTMLElement).classList.toggle("is-active", isOn);
+    if (isOn && options.focus) tab.focus();
   }
-  fitToContainer(plotEl(view));
+  writeViewState({ view });
+  if (view === "map" || view === "slices" || view === "auto" || view === "sum") fitToContainer(plotEl(view));
+  else registered[view]?.shown();
+  emit("view", view);
+}
+
+/**
+ * @param {boolean} grid
+ */
+function setGrid(grid) {
+  state.grid = grid;
+  const views = byId("views", HTMLElement);
+  const toggle = byId("layout-toggle", HTMLButtonElement);
+  views.classList.toggle("is-grid", grid);
+  document.body.classList.toggle("views-grid", grid);
+  toggle.setAttribute("aria-pressed", grid ? "true" : "false");
+  toggle.textContent = grid ? "Show one view" : "Show four at once";
+  if (grid && !(/** @type {readonly string[]} */ (GRID_VIEWS)).includes(state.active)) activate("map");
+  // The panels change size with the layout; let the browser lay them out
+  // first, then redraw, since legend placement and tick density follow size.
+  window.requestAnimationFrame(() => redrawAll());
+}
+
+/** Redraws every visible view (after a layout or lettering change). */
+export function redrawAll() {
+  for (const view of GRID_VIEWS) DRAW[view]();
+  registered[state.active]?.shown();
 }
 
 /** Shows the current time-axis choice in both of its radio groups. */
@@ -335,7 +486,76 @@ function syncTimeAxisRadios() {
   }
 }
 
-/** Wires tabs, the layout toggle and every view control. */
+/**
+ * Calls back with the value of the chosen radio button of a group.
+ * @param {string} name
+ * @param {(value: string) => void} callback
+ */
+function onRadio(name, callback) {
+  for (const radio of document.querySelectorAll(`input[name="${name}"]`)) {
+    if (!(radio instanceof HTMLInputElement)) continue;
+    radio.addEventListener("change", () => {
+      if (radio.checked) callback(radio.value);
+    });
+  }
+}
+
+/**
+ * Turns a fit's overlay into curves for the views, when the fit belongs to
+ * the dataset shown. The server names them `tail` ({t, C}) and `profile`
+ * ({x, t, C}); anything else in the overlay is left to other views.
+ * @param {FitResult} fit
+ */
+function takeFitOverlay(fit) {
+  const d = state.detail;
+  if (d === null || String(fit.dataset) !== String(d.id)) return;
+  const overlay = fit.overlay ?? null;
+  const z = fit.parameters.z;
+  const tail = overlay ? /** @type {any} */ (overlay).tail : null;
+  if (tail && Array.isArray(tail.t) && Array.isArray(tail.C)) {
+    state.fitOverlay.tail = {
+      label: z ? `${fit.method} fit: z = ${formatNumber(z.value)}` : `${fit.method} fit`,
+      kind: "fit",
+      t: tail.t,
+      C: tail.C,
+    };
+    DRAW.auto();
+  }
+  const profile = overlay ? /** @type {any} */ (overlay).profile : null;
+  if (profile && Array.isArray(profile.x) && Array.isArray(profile.t) && Array.isArray(profile.C)) {
+    state.fitOverlay.profile = {
+      label: `${fit.method} fit (dotted)`,
+      kind: "fit",
+      x: profile.x,
+      curves: profile.t.map((/** @type {number} */ t, /** @type {number} */ i) => ({ t, C: profile.C[i] ?? [] })),
+    };
+    DRAW.slices();
+  }
+}
+
+/**
+ * Downloads the figures of the active view.
+ * @param {"png" | "svg"} format
+ */
+function saveFigures(format) {
+  const view = state.active;
+  const figures = view === "map" || view === "slices" || view === "auto" || view === "sum" ? [plotEl(view)] : (registered[view]?.figures() ?? []);
+  const drawn = figures.filter(isDrawn);
+  const status = byId("copy-status", HTMLElement);
+  if (drawn.length === 0) {
+    status.textContent = "Nothing drawn in this view to save.";
+    return;
+  }
+  const name = state.detail ? state.detail.name.replace(/[^\p{L}\p{N}._-]+/gu, "-").replace(/^-+|-+$/g, "") : "session";
+  drawn.forEach((el, i) => {
+    const suffix = drawn.length > 1 ? `-${i + 1}` : "";
+    downloadFigure(el, format, `spreadscope-${name}-${view}${suffix}`).catch((e) => {
+      status.textContent = `Could not save the figure: ${e instanceof Error ? e.message : String(e)}`;
+    });
+  });
+}
+
+/** Wires tabs, the layout toggle, every view control and the drag hooks. */
 export function wireViews() {
   const tabs = VIEW_NAMES.map((name) => byId(`tab-${name}`, HTMLButtonElement));
   tabs.forEach((tab, i) => {
@@ -354,42 +574,25 @@ export function wireViews() {
     });
   });
 
-  const views = byId("views", HTMLElement);
-  const toggle = byId("layout-toggle", HTMLButtonElement);
-  toggle.addEventListener("click", () => {
-    state.grid = !state.grid;
-    views.classList.toggle("is-grid", state.grid);
-    document.body.classList.toggle("views-grid", state.grid);
-    toggle.setAttribute("aria-pressed", state.grid ? "true" : "false");
-    toggle.textContent = state.grid ? "Show one view" : "Show all four";
-    // The panels change size with the layout; let the browser lay them out
-    // first, then redraw, since legend placement and tick density follow size.
-    window.requestAnimationFrame(() => {
-      for (const view of VIEW_NAMES) DRAW[view]();
-    });
-  });
+  byId("layout-toggle", HTMLButtonElement).addEventListener("click", () => setGrid(!state.grid));
+  byId("save-png", HTMLButtonElement).addEventListener("click", () => saveFigures("png"));
+  byId("save-svg", HTMLButtonElement).addEventListener("click", () => saveFigures("svg"));
 
   const floor = byId("map-floor", HTMLSelectElement);
-  for (const radio of document.querySelectorAll('input[name="map-scale"]')) {
-    if (!(radio instanceof HTMLInputElement)) continue;
-    radio.addEventListener("change", () => {
-      if (!radio.checked) return;
-      state.mapScale = radio.value === "log" ? "log" : "linear";
-      floor.disabled = state.mapScale !== "log";
-      drawMapView();
-    });
-  }
+  onRadio("map-scale", (value) => {
+    state.mapScale = value === "log" ? "log" : "linear";
+    floor.disabled = state.mapScale !== "log";
+    drawMapView();
+  });
   floor.addEventListener("change", () => {
     const v = Number(floor.value);
     if (Number.isFinite(v) && v > 0) state.floor = v;
     drawMapView();
   });
 
-  for (const radio of document.querySelectorAll('input[name="map-t"], input[name="sum-t"]')) {
-    if (!(radio instanceof HTMLInputElement)) continue;
-    radio.addEventListener("change", () => {
-      if (!radio.checked) return;
-      state.timeAxis = radio.value === "log" ? "log" : "linear";
+  for (const group of ["map-t", "sum-t"]) {
+    onRadio(group, (value) => {
+      state.timeAxis = value === "log" ? "log" : "linear";
       syncTimeAxisRadios();
       drawMapView();
       drawSumView();
@@ -412,12 +615,42 @@ export function wireViews() {
     fillTimeOptions();
     drawSlicesView();
   });
-  for (const radio of document.querySelectorAll('input[name="slice-y"]')) {
-    if (!(radio instanceof HTMLInputElement)) continue;
-    radio.addEventListener("change", () => {
-      if (!radio.checked) return;
-      state.sliceY = radio.value === "log" ? "log" : "linear";
-      drawSlicesView();
-    });
-  }
+  onRadio("slice-y", (value) => {
+    state.sliceY = value === "log" ? "log" : "linear";
+    drawSlicesView();
+  });
+  onRadio("slices-drag", (value) => {
+    state.dragSlices = value === "zoom" ? "zoom" : "select";
+    drawSlicesView();
+  });
+  onRadio("auto-drag", (value) => {
+    state.dragAuto = value === "zoom" ? "zoom" : "select";
+    drawAutoView();
+  });
+
+  // A box dragged across the autocorrelation sets the time window; across
+  // the slices, the |x| window (the larger distance from the source).
+  onRangeSelect(plotEl("auto"), ([a, b]) => {
+    const round = (/** @type {number} */ v) => Number(v.toPrecision(3));
+    setWindows({ ...getWindows(), t_min: round(a), t_max: round(b) });
+    drawAutoView();
+  });
+  onRangeSelect(plotEl("slices"), ([a, b]) => {
+    const reach = Math.floor(Math.max(Math.abs(a), Math.abs(b)));
+    setWindows({ ...getWindows(), x_max: reach });
+    drawSlicesView();
+  });
+
+  on("windows", () => {
+    drawMapView();
+    drawSlicesView();
+    drawAutoView();
+  });
+  on("fit", takeFitOverlay);
+  on("theory", (theory) => {
+    state.theory = theory;
+    drawSlicesView();
+    drawAutoView();
+  });
+  on("textscale", () => window.requestAnimationFrame(() => redrawAll()));
 }

@@ -15,12 +15,24 @@ interface PlotlyStatic {
     layout?: PlotlyObject,
     config?: PlotlyObject,
   ): Promise<HTMLElement>;
+  /** Changes layout attributes of a drawn plot. */
+  relayout(root: HTMLElement, update: PlotlyObject): Promise<HTMLElement>;
   /** Removes a plot and its event listeners from an element. */
   purge(root: HTMLElement): void;
+  /** Renders a drawn plot to an image file and offers it as a download. */
+  downloadImage(
+    root: HTMLElement,
+    options: { format: "png" | "svg" | "jpeg" | "webp"; filename: string; width?: number; height?: number; scale?: number },
+  ): Promise<string>;
   Plots: {
     /** Fits a plot to its container's current size. */
     resize(root: HTMLElement): Promise<void> | void;
   };
+}
+
+/** A drawn plot's element: plotly adds an event emitter to it. */
+interface PlotlyElement extends HTMLElement {
+  on(event: string, handler: (data: unknown) => void): void;
 }
 
 declare const Plotly: PlotlyStatic;

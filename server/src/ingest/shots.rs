@@ -1562,8 +1562,8 @@ pub fn parse_hdf5_map<B: AsRef<[u8]> + Send + Sync + 'static>(
         ));
     }
     let mut points = Vec::new();
-    for ti in 0..rows {
-        for xi in 0..cols {
+    for (ti, &time) in ts.iter().enumerate() {
+        for (xi, &offset) in xs.iter().enumerate() {
             let k = ti * cols + xi;
             if let Some(m) = &present {
                 match bit_of(m[k]) {
@@ -1603,7 +1603,7 @@ pub fn parse_hdf5_map<B: AsRef<[u8]> + Send + Sync + 'static>(
                 },
                 None => None,
             };
-            if let (Some(t), Some(x)) = (ts[ti], xs[xi]) {
+            if let (Some(t), Some(x)) = (time, offset) {
                 points.push(Point { x, t, c: v, err: e });
             }
         }

@@ -21,6 +21,8 @@ use spreadscope_physics::fit::profile::{
 use spreadscope_physics::fit::short_time_check::{ShortTimeOptions, check_short_time};
 use spreadscope_physics::fit::tail::{TimeWindow, fit_tail, local_exponent};
 use spreadscope_physics::fit::width::{WidthOptions, fit_width};
+use spreadscope_physics::model::lattice_walk::LatticeWalk;
+use spreadscope_physics::model::stable::StableDensity;
 
 use super::{Access, CONVENTIONS, PROGRAM_VERSION, Service, ServiceError, ServiceResult};
 
@@ -197,6 +199,11 @@ pub struct FitResult {
     pub conventions: &'static str,
     /// The estimator's full report.
     pub report: Value,
+    /// Curves to draw over the data, computed from the fitted parameters:
+    /// `tail` `{t, C}` (the fitted C(0,t) law), `profile` `{x, t, C}` (the
+    /// fitted model on the window's grid) and `residual` `{x, t, values,
+    /// err}` (data − model).
+    pub overlay: Option<Value>,
 }
 
 /// Cancellation flags of running jobs, by (session, job id).
@@ -490,6 +497,88 @@ fn compute(
     }
 }
 
+/// The fitted curves of a result, on the grid of its window.
+fn overlay(
+    method: FitMethod,
+    input: &FitInput,
+    parameters: &BTreeMap<String, Parameter>,
+    report: &Value,
+) -> Option<Value> {
+    let value = |name: &str| parameters.get(name).map(|p| p.value);
+    let map = &input.map;
+    match method {
+        FitMethod::Tail => {
+            let (a, z) = (value("amplitude")?, value("z")?);
+            let t0 = report["t_window"][0].as_f64()?;
+            let t1 = report["t_window"][1].as_f64()?;
+            let n = 40;
+            let t: Vec<f64> = (0..n)
+                .map(|i| t0 * (t1 / t0).powf(i as f64 / (n - 1) as f64))
+                .collect();
+            let c: Vec<f64> = t.iter().map(|&t| a * t.powf(-1.0 / z)).collect();
+            Some(json!({"tail": {"t": t, "C": c}}))
+        }
+        FitMethod::Profile | FitMethod::Analysis => {
+            let (d, mu) = (value("D")?, value("mu")?);
+            let model = map.times().iter().map(|&t| {
+                let density = StableDensity::new(mu, (d * t).powf(1.0 / mu)).ok()?;
+                Some(
+                    map.offsets()
+                        .iter()
+                        .map(|&x| density.pdf(f64::from(x)))
+                        .collect::<Vec<_>>(),
+                )
+            });
+            let model: Option<Vec<Vec<f64>>> = model.collect();
+            grid_overlay(map, &model?)
+        }
+        FitMethod::LatticeWalk => {
+            let (gamma0, alpha) = (value("gamma0")?, value("alpha")?);
+            let sites = usize::try_from(report["sites"].as_u64()?).ok()?;
+            let source = usize::try_from(report["source"].as_u64()?).ok()?;
+            let walk = LatticeWalk::power_law(sites, gamma0, alpha).ok()?;
+            let p = walk.propagate(source, map.times()).ok()?;
+            let model: Option<Vec<Vec<f64>>> = (0..map.n_times())
+                .map(|ti| {
+                    map.offsets()
+                        .iter()
+                        .map(|&x| {
+                            let i = usize::try_from(i64::from(x) + source as i64).ok()?;
+                            p.get((ti, i)).copied()
+                        })
+                        .collect()
+                })
+                .collect();
+            grid_overlay(map, &model?)
+        }
+        FitMethod::Width | FitMethod::Collapse | FitMethod::ShortTime => None,
+    }
+}
+
+/// `profile` and `residual` overlays from model values on the map's grid.
+fn grid_overlay(map: &CorrelationMap, model: &[Vec<f64>]) -> Option<Value> {
+    let residual: Vec<Vec<Option<f64>>> = (0..map.n_times())
+        .map(|ti| {
+            (0..map.n_sites())
+                .map(|xi| map.get(ti, xi).map(|(c, _)| c - model[ti][xi]))
+                .collect()
+        })
+        .collect();
+    let err = map.errors().map(|_| {
+        (0..map.n_times())
+            .map(|ti| {
+                (0..map.n_sites())
+                    .map(|xi| map.get(ti, xi).and_then(|(_, e)| e))
+                    .collect::<Vec<_>>()
+            })
+            .collect::<Vec<_>>()
+    });
+    Some(json!({
+        "profile": {"x": map.offsets(), "t": map.times(), "C": model},
+        "residual": {"x": map.offsets(), "t": map.times(), "values": residual, "err": err},
+    }))
+}
+
 fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed> {
     let settings = ProfileOptions {
         bootstrap: options.bootstrap,
@@ -587,7 +676,11 @@ impl Service {
         let method = request.method;
         let flag = cancel.clone();
         let outcome = self
-            .heavy(move || compute(method, &input, &options, &flag))
+            .heavy(move || {
+                let computed = compute(method, &input, &options, &flag)?;
+                let overlay = overlay(method, &input, &computed.0, &computed.4);
+                Ok((computed, overlay))
+            })
             .await;
         if let Some(id) = &job {
             self.jobs.finish(session_id, id);
@@ -596,7 +689,7 @@ impl Service {
         if cancel.load(Ordering::SeqCst) {
             return Err(ServiceError::Cancelled);
         }
-        let (parameters, quality, termination, warnings, report, seed) = outcome?;
+        let ((parameters, quality, termination, warnings, report, seed), overlay) = outcome?;
         Ok(FitResult {
             method,
             dataset,
@@ -611,6 +704,7 @@ impl Service {
             program_version: PROGRAM_VERSION,
             conventions: CONVENTIONS,
             report,
+            overlay,
         })
     }
 
