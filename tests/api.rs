@@ -468,3 +468,48 @@ async fn comparison_and_report_carry_pinned_results() {
         "nothing loaded from a server"
     );
 }
+
+#[tokio::test]
+async fn a_shot_upload_becomes_a_dataset_and_keeps_its_shots() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let shots = std::fs::read(crate::support::repo_path("tests/reference/shots/shots.csv"))
+        .expect("fixture");
+    let uri = format!("/api/s/{view}/shots?name=run.csv&bootstrap=10&source=0");
+    let (status, _) = send_json(&app.router, Method::POST, &uri, shots.clone()).await;
+    assert_eq!(status, StatusCode::FORBIDDEN);
+    let uri = format!("/api/s/{edit}/shots?name=run.csv&bootstrap=10&symmetrise=true&source=0");
+    let (status, summary) = send_json(&app.router, Method::POST, &uri, shots).await;
+    assert_eq!(status, StatusCode::CREATED, "{summary}");
+    assert_eq!(summary["format"], "shots-csv");
+    assert_eq!(summary["has_errors"], true);
+    assert!(
+        summary["notes"]
+            .as_array()
+            .expect("notes")
+            .iter()
+            .any(|n| n.as_str().is_some_and(|s| s.contains("symmetrise")))
+    );
+    let bad = format!("/api/s/{edit}/shots?name=bad.csv");
+    let (status, body) = send_json(
+        &app.router,
+        Method::POST,
+        &bad,
+        "state_id,t,init_bits,meas_bits\na,0,01,0\n",
+    )
+    .await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
+    assert_eq!(body["problems"][0]["line"], 2);
+    let (_, list) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{edit}/datasets"),
+        "",
+    )
+    .await;
+    assert_eq!(
+        list.as_array().map(Vec::len),
+        Some(1),
+        "the bad file stored nothing"
+    );
+}

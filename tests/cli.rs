@@ -237,3 +237,84 @@ fn analyze_json_has_the_documented_keys() {
     assert!(human.status.success());
     assert!(String::from_utf8_lossy(&human.stdout).contains("spreadscope"));
 }
+
+fn correlate(
+    file: &str,
+    extra: &[&str],
+) -> (
+    std::process::Output,
+    Option<spreadscope_physics::CorrelationMap>,
+) {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let out_path = dir.path().join("c.csv");
+    let out = spreadscope()
+        .arg("correlate")
+        .arg(crate::support::repo_path(file))
+        .args(extra)
+        .arg("--out")
+        .arg(&out_path)
+        .output()
+        .expect("runs");
+    let map = std::fs::read(&out_path).ok().map(|b| {
+        ingest::parse(&b, Format::Csv, &IngestOptions::default())
+            .expect("our output parses")
+            .map
+    });
+    (out, map)
+}
+
+#[test]
+fn correlate_gives_the_same_map_from_every_shot_format() {
+    let args = ["--bootstrap", "20", "--seed", "5", "--source", "0"];
+    let (out, csv) = correlate("tests/reference/shots/shots.csv", &args);
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let csv = csv.expect("written");
+    assert!(csv.errors().is_some(), "bootstrap errors written");
+    for other in [
+        "tests/reference/shots/shots.npz",
+        "tests/reference/shots/shots_chunked.h5",
+    ] {
+        let (out, map) = correlate(other, &args);
+        assert!(
+            out.status.success(),
+            "{other}: {}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        assert_eq!(
+            map.expect("written").values(),
+            csv.values(),
+            "{other} differs from the CSV"
+        );
+    }
+}
+
+#[test]
+fn correlate_refuses_bad_shots_and_bad_options_with_exit_2() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let bad = dir.path().join("bad.csv");
+    std::fs::write(
+        &bad,
+        "state_id,t,init_bits,meas_bits\na,0,0101,0101\na,1,0101,01x1\n",
+    )
+    .expect("writes");
+    let out = spreadscope()
+        .arg("correlate")
+        .arg(&bad)
+        .arg("--out")
+        .arg(dir.path().join("o.csv"))
+        .output()
+        .expect("runs");
+    assert_eq!(out.status.code(), Some(2));
+    let stderr = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        stderr.contains("bad.csv") && stderr.contains("line 3"),
+        "{stderr}"
+    );
+    let (out, _) = correlate("tests/reference/shots/shots.csv", &["--readout", "0.7,0.1"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("readout"));
+}

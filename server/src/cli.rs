@@ -31,6 +31,8 @@ pub enum Command {
     Serve(ServeArgs),
     /// Run every estimator on a correlation map and print the results.
     Analyze(crate::analyze::AnalyzeArgs),
+    /// Estimate C(x,t) with bootstrap errors from shot records.
+    Correlate(crate::correlate::CorrelateArgs),
     /// Compute a reference model's C(x,t) and write it as long CSV `x,t,C[,err]`.
     Simulate(crate::simulate::SimulateArgs),
 }
@@ -67,6 +69,7 @@ pub fn run(cli: Cli) -> ExitCode {
         Command::Serve(args) => serve(&args),
         Command::Simulate(args) => crate::simulate::run(&args),
         Command::Analyze(args) => crate::analyze::run(&args),
+        Command::Correlate(args) => crate::correlate::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

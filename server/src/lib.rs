@@ -9,6 +9,7 @@ pub mod analyze;
 pub mod api;
 pub mod app;
 pub mod cli;
+pub mod correlate;
 pub mod dataset;
 pub mod ingest;
 pub mod loadcheck;

@@ -25,9 +25,11 @@ use tower_http::set_header::SetResponseHeaderLayer;
 use tower_http::timeout::TimeoutLayer;
 
 use crate::dataset::DatasetMeta;
+use crate::ingest::shots::ShotFormat;
 use crate::ingest::{Format, IngestOptions};
 use crate::service::fits::{FitRequest, Windows};
 use crate::service::log::{self as pinned, PinRequest};
+use crate::service::shots::ShotOptions;
 use crate::service::theory::TheoryRequest;
 use crate::service::{CONVENTIONS, PROGRAM_VERSION, Service, ServiceError};
 
@@ -60,6 +62,10 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
             get(list_datasets)
                 .post(upload_dataset)
                 .layer(DefaultBodyLimit::max(config.max_upload_bytes)),
+        )
+        .route(
+            "/s/{token}/shots",
+            post(upload_shots).layer(DefaultBodyLimit::max(config.max_upload_bytes)),
         )
         .route("/s/{token}/datasets/{id}", get(get_dataset))
         .route("/s/{token}/datasets/{id}/meta", put(update_meta))
@@ -294,6 +300,60 @@ async fn upload_dataset(
     };
     let summary = service
         .add_dataset(&access, &name, format, body.to_vec(), options)
+        .await?;
+    Ok((StatusCode::CREATED, Json(json!(summary))).into_response())
+}
+
+/// The query of a shot upload. Listed field by field: query strings carry
+/// only text, which `serde(flatten)` would not convert to numbers.
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ShotQuery {
+    name: Option<String>,
+    format: Option<String>,
+    source: Option<usize>,
+    bulk: Option<String>,
+    readout: Option<String>,
+    #[serde(default)]
+    readout_from_t0: bool,
+    #[serde(default)]
+    symmetrise: bool,
+    #[serde(default)]
+    renormalise: bool,
+    bootstrap: Option<usize>,
+    seed: Option<u64>,
+}
+
+async fn upload_shots(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+    query: Result<Query<ShotQuery>, axum::extract::rejection::QueryRejection>,
+    body: Bytes,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let Query(query) =
+        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    let name = query.name.unwrap_or_default();
+    let format = match &query.format {
+        Some(f) => f
+            .parse::<ShotFormat>()
+            .map_err(|e| ServiceError::BadRequest(format!("parameter `format`: {e}")))?,
+        None => ShotFormat::from_file_name(&name)
+            .or_else(|| ShotFormat::sniff(&body))
+            .ok_or_else(|| ServiceError::BadRequest("parameter `format`: missing".into()))?,
+    };
+    let options = ShotOptions {
+        source: query.source,
+        bulk: query.bulk,
+        readout: query.readout,
+        readout_from_t0: query.readout_from_t0,
+        symmetrise: query.symmetrise,
+        renormalise: query.renormalise,
+        bootstrap: query.bootstrap,
+        seed: query.seed,
+    };
+    let summary = service
+        .add_shots(&access, &name, format, body.to_vec(), options)
         .await?;
     Ok((StatusCode::CREATED, Json(json!(summary))).into_response())
 }

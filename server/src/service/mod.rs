@@ -9,6 +9,7 @@ mod demo;
 pub mod fits;
 pub mod log;
 pub mod report;
+pub mod shots;
 pub mod theory;
 
 use std::sync::Arc;

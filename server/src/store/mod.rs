@@ -21,6 +21,7 @@ use crate::dataset::DatasetMeta;
 const MIGRATIONS: &[&str] = &[
     include_str!("migrations/0001_init.sql"),
     include_str!("migrations/0002_log.sql"),
+    include_str!("migrations/0003_shots.sql"),
 ];
 
 #[derive(Debug, thiserror::Error)]
@@ -279,6 +280,40 @@ impl Store {
             )
             .optional()?;
         raw.map(decode_dataset).transpose()
+    }
+
+    /// Keeps an uploaded shot file beside the dataset estimated from it.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn insert_shot_file(
+        &self,
+        session_id: i64,
+        dataset_id: i64,
+        name: &str,
+        format: &str,
+        bytes: &[u8],
+        estimator: &str,
+    ) -> StoreResult<i64> {
+        let conn = self.lock();
+        conn.execute(
+            "INSERT INTO shot_files (session_id, dataset_id, name, format, bytes, estimator)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+            params![session_id, dataset_id, name, format, bytes, estimator],
+        )?;
+        Ok(conn.last_insert_rowid())
+    }
+
+    /// Number of shot files a session keeps.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn shot_file_count(&self, session_id: i64) -> StoreResult<i64> {
+        Ok(self.lock().query_row(
+            "SELECT COUNT(*) FROM shot_files WHERE session_id = ?1",
+            params![session_id],
+            |r| r.get(0),
+        )?)
     }
 
     /// Replaces a dataset's metadata. Returns `false` if no such dataset.
