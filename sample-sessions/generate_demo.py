@@ -26,9 +26,9 @@ RUNS = [
     # file, alpha, last time, repetitions per point, readout error, seed.
     # Each run stops before its spread reaches the chain's ends: widths grow
     # like t^(1/z) with z = 2 alpha - 1 (alpha < 3/2) or 2.
-    ("run07-alpha0.9.csv", 0.9, 6.0, 50000, 0.0, 7),
-    ("run11-alpha1.2-readout.csv", 1.2, 20.0, 50000, 0.015, 11),
-    ("run15-alpha2.0.csv", 2.0, 30.0, 50000, 0.0, 15),
+    ("run07-alpha0.9.csv", 0.9, 6.0, 400000, 0.0, 7),
+    ("run11-alpha1.2-readout.csv", 1.2, 20.0, 400000, 0.015, 11),
+    ("run15-alpha2.0.csv", 2.0, 30.0, 400000, 0.0, 15),
 ]
 
 
