@@ -51,7 +51,9 @@ fn synthetic_map() -> CorrelationMap {
 
 /// Long CSV `x,t,C,err` with every number printed so that it round-trips.
 fn write_csv(map: &CorrelationMap) -> PathBuf {
-    let mut text = String::from("# synthetic: lattice walk alpha = 1, 101 sites, seeded noise 1e-4\nx,t,C,err\n");
+    let mut text = String::from(
+        "# synthetic: lattice walk alpha = 1, 101 sites, seeded noise 1e-4\nx,t,C,err\n",
+    );
     let errors = map.errors().expect("errors attached");
     for (ti, &t) in map.times().iter().enumerate() {
         for (xi, &x) in map.offsets().iter().enumerate() {
@@ -171,22 +173,6 @@ fn main() {
             std::hint::black_box(q.best(&collapse).expect("collapse"));
         });
     }
-    {
-        use spreadscope_physics::fit::profile::{ProfileModel, fit_profile};
-        let r = fit_profile(&window, ProfileModel::Stable, &ProfileOptions::default()).expect("fit");
-        println!("SCRATCH stable iterations {} termination {:?} points {}", r.iterations, r.termination, r.points);
-        let r = fit_profile(&window, ProfileModel::Gaussian, &ProfileOptions::default()).expect("fit");
-        println!("SCRATCH gauss iterations {} termination {:?}", r.iterations, r.termination);
-        part("stable fit only", 5, &|| { std::hint::black_box(fit_profile(&window, ProfileModel::Stable, &ProfileOptions::default()).expect("fit")); });
-        part("gauss fit only", 5, &|| { std::hint::black_box(fit_profile(&window, ProfileModel::Gaussian, &ProfileOptions::default()).expect("fit")); });
-        let d = spreadscope_physics::model::stable::StableDensity::standard(1.1).expect("d");
-        part("StableDensity::standard", 50, &|| { std::hint::black_box(spreadscope_physics::model::stable::StableDensity::standard(std::hint::black_box(1.1)).expect("d")); });
-        let w = fit_lattice_walk(&map, &LatticeWalkFitOptions::new(SITES, SITES / 2)).expect("fits");
-        println!("SCRATCH walk iterations {} eig {} term {:?}", w.iterations, w.eigendecompositions, w.termination);
-        let a = ndarray::Array2::from_shape_fn((101, 101), |(i, j)| if i == j { -2.0 } else { 1.0 / (1.0 + (i as f64 - j as f64).abs()) });
-        part("eigen 101", 20, &|| { std::hint::black_box(spreadscope_physics::numerics::linalg::symmetric_eigen(&a).expect("eig")); });
-        part("1000 log_pdf", 50, &|| { for k in 0..1000 { std::hint::black_box(d.log_pdf(0.037 * k as f64)); } });
-    }
     part("lattice-walk fit, whole map", 5, &|| {
         std::hint::black_box(
             fit_lattice_walk(&map, &LatticeWalkFitOptions::new(SITES, SITES / 2)).expect("fits"),
@@ -215,6 +201,3 @@ fn main() {
         println!("scipy side (slow: minutes): python3 {}", args.join(" "));
     }
 }
-
-#[allow(dead_code)]
-fn scratch() {}

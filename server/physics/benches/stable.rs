@@ -23,7 +23,9 @@ const MUS: [f64; 9] = [0.5, 0.8, 0.999, 1.001, 1.2, 1.5, 1.8, 1.95, 2.0];
 
 /// The x points timed (the scipy script builds the same list).
 fn points() -> Vec<f64> {
-    let mut xs: Vec<f64> = (0..61).map(|k| 10f64.powf(-3.0 + 0.1 * f64::from(k))).collect();
+    let mut xs: Vec<f64> = (0..61)
+        .map(|k| 10f64.powf(-3.0 + 0.1 * f64::from(k)))
+        .collect();
     xs.extend((0..101).map(|k| 0.2 * f64::from(k)));
     xs
 }
@@ -48,7 +50,10 @@ fn ns_per_point(xs: &[f64], f: impl Fn(f64) -> f64) -> f64 {
 
 fn main() {
     let xs = points();
-    println!("symmetric stable density, {} points per index (ns per point)", xs.len());
+    println!(
+        "symmetric stable density, {} points per index (ns per point)",
+        xs.len()
+    );
     println!(
         "{:>6} {:>10} {:>10} {:>10} {:>10} {:>12}  by method (ns/point, count)",
         "mu", "pdf", "cdf", "log_pdf", "d/dx", "build (us)"
@@ -82,5 +87,8 @@ fn main() {
             split.join(", ")
         );
     }
-    println!("mean pdf over all indices: {:.0} ns/point", total_pdf / MUS.len() as f64);
+    println!(
+        "mean pdf over all indices: {:.0} ns/point",
+        total_pdf / MUS.len() as f64
+    );
 }

@@ -38,7 +38,7 @@ use crate::CorrelationMap;
 use crate::SumRulePoint;
 use crate::fit::collapse::{CollapseOptions, CollapseQuality, CollapseReport};
 use crate::fit::diagnosis::{
-    self, Edges, Warning, WarningCode, ZEstimate, estimator_failed, poor_fit,
+    self, Edges, Warning, WarningCode, ZEstimate, estimator_failed, plus_minus, poor_fit,
 };
 use crate::fit::lattice_walk_fit::{LatticeWalkFitOptions, LatticeWalkFitReport, fit_lattice_walk};
 use crate::fit::profile::{
@@ -47,6 +47,7 @@ use crate::fit::profile::{
 use crate::fit::short_time_check::{ShortTimeOptions, ShortTimeReport, check_short_time};
 use crate::fit::tail::{LocalExponent, TailReport, TimeWindow, fit_tail, local_exponent};
 use crate::fit::width::{WidthOptions, WidthReport, fit_width};
+use crate::numerics::optimize::Termination;
 
 /// The conventions every output states (DESIGN.md).
 pub const CONVENTIONS: &str = "C(x,t) = 2^-N Tr[σ^z_{j+x}(t) σ^z_j(0)] (infinite temperature); \
@@ -329,8 +330,9 @@ pub fn analyze(
         }
     };
 
-    // The collapse and the profile fits are independent: run them side by
-    // side (each bootstrap is the costly part).
+    // The collapse, the profile fits and the lattice-walk fit are
+    // independent: run them side by side (the bootstraps and the walk's
+    // eigendecompositions are the costly parts).
     let collapse_options = CollapseOptions {
         bootstrap_resamples: options.bootstrap,
         seed: options.seed,
@@ -341,9 +343,23 @@ pub fn analyze(
         seed: options.seed,
         ..ProfileOptions::default()
     };
-    let (collapse_result, profile_result) = rayon::join(
+    // The lattice-walk fit sees the user's window only (no late-time cut).
+    let walk_map = match chain {
+        Some(_) => Some(map.window(options.t_min, options.t_max, options.x_max)?),
+        None => None,
+    };
+    let (collapse_result, (profile_result, walk_result)) = rayon::join(
         || CollapseQuality::new(&scaling_map).and_then(|q| q.best(&collapse_options)),
-        || profile_section(&scaling_map, &profile_options),
+        || {
+            rayon::join(
+                || profile_section(&scaling_map, &profile_options),
+                || {
+                    chain.zip(walk_map.as_ref()).map(|((sites, source, _), m)| {
+                        fit_lattice_walk(m, &LatticeWalkFitOptions::new(sites, source))
+                    })
+                },
+            )
+        },
     );
     let collapse = match collapse_result {
         Ok(fit) => Some(CollapseSection {
@@ -370,21 +386,15 @@ pub fn analyze(
         }
     };
 
-    // Lattice-walk fit over the user's window only.
-    let lattice_walk = match chain {
-        Some((sites, source, _)) => {
-            let walk_map = map.window(options.t_min, options.t_max, options.x_max)?;
-            match fit_lattice_walk(&walk_map, &LatticeWalkFitOptions::new(sites, source)) {
-                Ok(r) => Some(r),
-                Err(e) => {
-                    warnings.push(estimator_failed(
-                        "lattice-walk fit",
-                        &e.to_string(),
-                        "Check the chain length and source site against the map's offsets.",
-                    ));
-                    None
-                }
-            }
+    let lattice_walk = match walk_result {
+        Some(Ok(r)) => Some(r),
+        Some(Err(e)) => {
+            warnings.push(estimator_failed(
+                "lattice-walk fit",
+                &e.to_string(),
+                "Check the chain length and source site against the map's offsets.",
+            ));
+            None
         }
         None => None,
     };
@@ -610,7 +620,12 @@ fn diagnose(map: &CorrelationMap, inputs: &DiagnosisInputs<'_>, warnings: &mut V
             z_err: w.z_err,
         });
     }
-    if let Some(c) = inputs.collapse {
+    // A collapse whose minimum lies on the edge of the searched range has
+    // no meaningful error: it is left out of the comparison.
+    if let Some(c) = inputs
+        .collapse
+        .filter(|c| c.termination != Termination::MinimumAtBoundary)
+    {
         estimates.push(ZEstimate {
             estimator: "collapse",
             z: c.z,
@@ -690,18 +705,24 @@ impl AnalysisReport {
             Some(a) => row(
                 &mut out,
                 "tail C(0,t)",
-                pm(a.fit.z, a.fit.z_err),
-                format!("A = {}", pm(a.fit.amplitude, a.fit.amplitude_err)),
+                plus_minus(a.fit.z, a.fit.z_err),
+                format!("A = {}", plus_minus(a.fit.amplitude, a.fit.amplitude_err)),
                 format!("χ²/dof = {}", num(a.fit.chi2_dof)),
             ),
-            None => row(&mut out, "tail C(0,t)", "—".into(), String::new(), "failed".into()),
+            None => row(
+                &mut out,
+                "tail C(0,t)",
+                "—".into(),
+                String::new(),
+                "failed".into(),
+            ),
         }
         if let Some(wd) = &self.width {
             row(
                 &mut out,
                 &format!("width (q = {})", wd.q),
-                pm(wd.z, wd.z_err),
-                format!("B = {}", pm(wd.prefactor, wd.prefactor_err)),
+                plus_minus(wd.z, wd.z_err),
+                format!("B = {}", plus_minus(wd.prefactor, wd.prefactor_err)),
                 format!("χ²/dof = {}", num(wd.chi2_dof)),
             );
         }
@@ -709,11 +730,17 @@ impl AnalysisReport {
             Some(c) => row(
                 &mut out,
                 "collapse (H&H S)",
-                pm(c.fit.z, c.fit.z_err),
+                plus_minus(c.fit.z, c.fit.z_err),
                 format!("error: {}", c.fit.z_err_source),
                 format!("S_min = {}", num(c.quality)),
             ),
-            None => row(&mut out, "collapse (H&H S)", "—".into(), String::new(), "failed".into()),
+            None => row(
+                &mut out,
+                "collapse (H&H S)",
+                "—".into(),
+                String::new(),
+                "failed".into(),
+            ),
         }
         if let Some(p) = &self.profile {
             let reports: Vec<&ProfileReport> = match &p.comparison {
@@ -723,32 +750,38 @@ impl AnalysisReport {
             for r in reports {
                 let z = match r.model {
                     ProfileModel::Gaussian => "2 (fixed)".to_string(),
-                    ProfileModel::Stable => pm(r.mu, r.mu_err),
+                    ProfileModel::Stable => plus_minus(r.mu, r.mu_err),
                 };
                 row(
                     &mut out,
                     &format!("profile {}", r.model.name()),
                     z,
-                    format!("D = {}", pm(r.d, r.d_err)),
+                    format!("D = {}", plus_minus(r.d, r.d_err)),
                     format!("χ²/dof = {}, AIC {}", num(r.chi2_dof), num(r.aic)),
                 );
             }
         } else {
-            row(&mut out, "profile", "—".into(), String::new(), "failed".into());
+            row(
+                &mut out,
+                "profile",
+                "—".into(),
+                String::new(),
+                "failed".into(),
+            );
         }
         if let Some(l) = &self.lattice_walk {
             row(
                 &mut out,
                 "lattice walk",
-                pm(l.z, l.z_err),
-                format!("α = {}", pm(l.alpha, l.alpha_err)),
+                plus_minus(l.z, l.z_err),
+                format!("α = {}", plus_minus(l.alpha, l.alpha_err)),
                 format!("χ²/dof = {}", num(l.chi2_dof)),
             );
             row(
                 &mut out,
                 "",
                 String::new(),
-                format!("γ0 = {}", pm(l.gamma0, l.gamma0_err)),
+                format!("γ0 = {}", plus_minus(l.gamma0, l.gamma0_err)),
                 String::new(),
             );
         }
@@ -784,9 +817,9 @@ impl AnalysisReport {
             let _ = writeln!(
                 out,
                 "short t   Σ_b K_0b² = {}, K_01² = {} (t ≤ {}, order t^{})",
-                pm(s.square_sum.value, s.square_sum.err),
+                plus_minus(s.square_sum.value, s.square_sum.err),
                 s.neighbour
-                    .map_or("—".to_string(), |k| pm(k.value, k.err)),
+                    .map_or("—".to_string(), |k| plus_minus(k.value, k.err)),
                 num(s.t_window[1]),
                 s.order
             );
@@ -839,15 +872,6 @@ fn num(v: f64) -> String {
     }
 }
 
-/// "value ± error" with the value rounded to the error's second digit.
-fn pm(v: f64, e: f64) -> String {
-    if !(e.is_finite() && e > 0.0 && v.is_finite()) {
-        return format!("{} ± {}", num(v), if e.is_nan() { "?".into() } else { num(e) });
-    }
-    let digits = (1 - e.log10().floor() as i32).clamp(0, 8) as usize;
-    format!("{v:.digits$} ± {e:.digits$}")
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
@@ -897,7 +921,10 @@ mod tests {
         assert_eq!(report.windows.source, Some(30));
         assert!(walk.alpha_err > 0.0 && walk.alpha_err < 0.01, "{walk:?}");
         assert!((walk.alpha - 0.9).abs() <= 2.0 * walk.alpha_err, "{walk:?}");
-        assert!((walk.gamma0 - 1.0).abs() <= 2.0 * walk.gamma0_err, "{walk:?}");
+        assert!(
+            (walk.gamma0 - 1.0).abs() <= 2.0 * walk.gamma0_err,
+            "{walk:?}"
+        );
     }
 
     #[test]
@@ -950,9 +977,15 @@ mod tests {
             assert!(json.pointer(path).is_some(), "missing {path}");
         }
         assert!(json.get("lattice_walk").is_none());
-        assert_eq!(json.pointer("/profile/model"), Some(&serde_json::json!("gaussian")));
+        assert_eq!(
+            json.pointer("/profile/model"),
+            Some(&serde_json::json!("gaussian"))
+        );
         let text = report.render_text();
-        assert!(text.contains("profile gaussian") && text.contains("collapse"), "{text}");
+        assert!(
+            text.contains("profile gaussian") && text.contains("collapse"),
+            "{text}"
+        );
     }
 
     #[test]
@@ -985,7 +1018,10 @@ mod tests {
             ..AnalysisOptions::default()
         };
         let (w2, _) = scaling_window(&map, &given);
-        assert!(w2.t_max.is_some_and(|t| (t - 300.0).abs() < 1e-12), "{w2:?}");
+        assert!(
+            w2.t_max.is_some_and(|t| (t - 300.0).abs() < 1e-12),
+            "{w2:?}"
+        );
         // Too few times in the default window: every time is used.
         let short = map.window(None, Some(30.0), None).expect("window");
         let (w3, rule3) = scaling_window(&short, &AnalysisOptions::default());
@@ -1014,8 +1050,6 @@ mod tests {
 
     #[test]
     fn number_formatting() {
-        assert_eq!(pm(1.23456, 0.0123), "1.235 ± 0.012");
-        assert_eq!(pm(12.0, 3.0), "12.0 ± 3.0");
         assert_eq!(num(0.5), "0.5000");
         assert_eq!(num(12346.0), "1.235e4");
     }

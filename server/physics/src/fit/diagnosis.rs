@@ -74,12 +74,21 @@ pub const DISAGREE_SIGMAS: f64 = 3.0;
 fn mean_exponent(points: &[&LocalExponent]) -> (f64, Option<f64>) {
     let weights: Option<Vec<f64>> = points
         .iter()
-        .map(|p| p.err.filter(|e| *e > 0.0 && e.is_finite()).map(|e| e.powi(-2)))
+        .map(|p| {
+            p.err
+                .filter(|e| *e > 0.0 && e.is_finite())
+                .map(|e| e.powi(-2))
+        })
         .collect();
     match weights {
         Some(w) => {
             let sw: f64 = w.iter().sum();
-            let mean = points.iter().zip(&w).map(|(p, w)| p.exponent * w).sum::<f64>() / sw;
+            let mean = points
+                .iter()
+                .zip(&w)
+                .map(|(p, w)| p.exponent * w)
+                .sum::<f64>()
+                / sw;
             (mean, Some(sw.sqrt().recip()))
         }
         None => {
@@ -128,17 +137,17 @@ pub fn exponent_drift(local: &[LocalExponent], window: TimeWindow) -> Option<War
     if !(significant && change > DRIFT_RELATIVE * scale) {
         return None;
     }
-    let fmt_err = |e: Option<f64>| e.map_or(String::new(), |e| format!(" ± {e:.2}"));
+    let fmt = |m: f64, e: Option<f64>| e.map_or(format!("{m:.3}"), |e| plus_minus(m, e));
     let span = |pts: &[&LocalExponent]| format!("t ≈ {:.3}–{:.3}", pts[0].t, pts[pts.len() - 1].t);
     Some(Warning {
         code: WarningCode::ExponentDrift,
         message: format!(
-            "The local exponent −d ln C(0,t)/d ln t drifts from {m1:.2}{} ({}) to {m2:.2}{} ({}) \
-             across the fit window: C(0,t) is not one power law there, so the tail exponent \
-             (and z from it) depends on the window.",
-            fmt_err(e1),
+            "The local exponent −d ln C(0,t)/d ln t drifts from {} ({}) to {} ({}) across the \
+             fit window: C(0,t) is not one power law there, so the tail exponent (and z from \
+             it) depends on the window.",
+            fmt(m1, e1),
             span(early),
-            fmt_err(e2),
+            fmt(m2, e2),
             span(late)
         ),
         advice: "Narrow the time window to where the local exponent is flat. If the spread has \
@@ -165,9 +174,10 @@ pub fn poor_fit(
     Some(Warning {
         code: WarningCode::PoorFit,
         message: format!(
-            "The {estimator} fit has χ²/dof = {chi2_dof:.2} (p = {p:.1e}): the model does not \
-             describe the data within their errors, so its parameter errors understate the real \
-             uncertainty."
+            "The {estimator} fit has χ²/dof = {chi2_dof:.2} ({}): the model does not describe \
+             the data within their errors, so its parameter errors understate the real \
+             uncertainty.",
+            p_text(p)
         ),
         advice: advice.to_string(),
     })
@@ -239,7 +249,9 @@ pub fn edge_fraction(map: &CorrelationMap, ti: usize, edges: Edges) -> Option<f6
     let zone = ((EDGE_ZONE * span).round() as i32).max(1);
     let (mut total, mut outer, mut seen) = (0.0, 0.0, false);
     for (xi, &x) in map.offsets().iter().enumerate() {
-        let Some((c, _)) = map.get(ti, xi) else { continue };
+        let Some((c, _)) = map.get(ti, xi) else {
+            continue;
+        };
         let c = c.max(0.0);
         total += c;
         if x < edges.left + zone || x > edges.right - zone {
@@ -293,16 +305,21 @@ pub fn reaches_edges(map: &CorrelationMap, window: TimeWindow, edges: Edges) -> 
 #[must_use]
 pub fn near_crossover(alpha: f64, alpha_err: f64, source: &str) -> Option<Warning> {
     let distance = (alpha - 1.5).abs();
-    let err = if alpha_err.is_finite() { alpha_err } else { 0.0 };
+    let err = if alpha_err.is_finite() {
+        alpha_err
+    } else {
+        0.0
+    };
     if !(distance <= CROSSOVER_BAND || distance <= 2.0 * err) {
         return None;
     }
     Some(Warning {
         code: WarningCode::NearCrossover,
         message: format!(
-            "α = {alpha:.3} ± {err:.3} from {source} is near the crossover α = 3/2 between Lévy \
+            "α = {} from {source} is near the crossover α = 3/2 between Lévy \
              flight and diffusion: there the corrections to scaling decay only like \
-             |k|^|2α−3|, so exponents fitted on accessible scales drift and z is not sharp."
+             |k|^|2α−3|, so exponents fitted on accessible scales drift and z is not sharp.",
+            plus_minus(alpha, err)
         ),
         advice: "Quote a range for z rather than a sharp value, and compare with the lattice-walk \
                  model at the fitted α, which contains the corrections."
@@ -365,6 +382,28 @@ pub fn sum_rule_off(points: &[SumRulePoint], covers_chain: Option<bool>) -> Opti
     })
 }
 
+/// "value ± error" with the error rounded to two significant digits and
+/// the value to the same decimal place (common practice, no source); plain
+/// numbers when the error is not finite and positive.
+#[must_use]
+pub fn plus_minus(value: f64, err: f64) -> String {
+    if !(err.is_finite() && err > 0.0 && value.is_finite()) {
+        return format!("{value:.4} ± {err:.2}");
+    }
+    let digits = (1 - err.log10().floor() as i32).clamp(0, 12) as usize;
+    format!("{value:.digits$} ± {err:.digits$}")
+}
+
+/// A p-value in words: "p = 3.1e-5", or "p < 1e-99" when it underflows the
+/// two-digit exponent people read.
+fn p_text(p: f64) -> String {
+    if p < 1e-99 {
+        "p < 1e-99".to_string()
+    } else {
+        format!("p = {p:.1e}")
+    }
+}
+
 /// One estimate of z for the agreement check.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct ZEstimate {
@@ -373,14 +412,15 @@ pub struct ZEstimate {
     pub z_err: f64,
 }
 
-/// Do estimates of z disagree? Every pair with finite values and errors is
-/// compared; a warning lists the pairs that differ by more than
+/// Do estimates of z disagree? Every pair with finite values and finite,
+/// positive errors is compared (an error of 0 marks an estimate without
+/// one); a warning lists the pairs that differ by more than
 /// [`DISAGREE_SIGMAS`] combined standard deviations.
 #[must_use]
 pub fn estimators_disagree(estimates: &[ZEstimate]) -> Option<Warning> {
     let usable: Vec<&ZEstimate> = estimates
         .iter()
-        .filter(|e| e.z.is_finite() && e.z_err.is_finite() && e.z_err >= 0.0)
+        .filter(|e| e.z.is_finite() && e.z_err.is_finite() && e.z_err > 0.0)
         .collect();
     let mut pairs = Vec::new();
     for (i, a) in usable.iter().enumerate() {
@@ -394,8 +434,11 @@ pub fn estimators_disagree(estimates: &[ZEstimate]) -> Option<Warning> {
                     "no error given".to_string()
                 };
                 pairs.push(format!(
-                    "{} z = {:.3} ± {:.3} vs {} z = {:.3} ± {:.3} ({sigmas})",
-                    a.estimator, a.z, a.z_err, b.estimator, b.z, b.z_err
+                    "{} z = {} vs {} z = {} ({sigmas})",
+                    a.estimator,
+                    plus_minus(a.z, a.z_err),
+                    b.estimator,
+                    plus_minus(b.z, b.z_err)
                 ));
             }
         }
@@ -452,7 +495,11 @@ mod tests {
             .collect();
         let w = exponent_drift(&local(&drifting), all).expect("drift");
         assert_eq!(w.code, WarningCode::ExponentDrift);
-        assert!(w.message.contains("1.25") && w.message.contains("0.40"), "{}", w.message);
+        assert!(
+            w.message.contains("1.250") && w.message.contains("0.400"),
+            "{}",
+            w.message
+        );
         // A 20 % change within huge errors: not significant.
         let noisy: Vec<_> = (1..=8)
             .map(|k| (f64::from(k), if k <= 4 { 0.5 } else { 0.6 }, Some(1.0)))
@@ -464,6 +511,14 @@ mod tests {
             t_max: None,
         };
         assert!(exponent_drift(&local(&drifting), window).is_none());
+    }
+
+    #[test]
+    fn plain_number_formats() {
+        assert_eq!(plus_minus(1.23456, 0.0123), "1.235 ± 0.012");
+        assert_eq!(plus_minus(12.0, 3.0), "12.0 ± 3.0");
+        assert_eq!(p_text(0.0), "p < 1e-99");
+        assert_eq!(p_text(3.14e-5), "p = 3.1e-5");
     }
 
     #[test]
@@ -540,8 +595,8 @@ mod tests {
             },
         ];
         let w = estimators_disagree(&estimates).expect("disagree");
-        assert!(w.message.contains("tail z = 1.000") && w.message.contains("profile"));
-        assert!(!w.message.contains("tail z = 1.000 ± 0.010 vs collapse"));
+        assert!(w.message.contains("tail z = 1.000 ± 0.010") && w.message.contains("profile"));
+        assert!(!w.message.contains("vs collapse"), "{}", w.message);
         assert!(estimators_disagree(&estimates[..2]).is_none());
     }
 }

@@ -477,8 +477,8 @@ mod tests {
         assert!((report.intercept - 0.9).abs() < 3.0 * report.intercept_err);
         // A wrong nominal chain (α = 0.5) must show up as a large pull.
         let wrong = Couplings::power_law(sites, 1.0, 0.5).expect("couplings");
-        let off = check_short_time(&map, &ShortTimeOptions::default(), Some(&wrong))
-            .expect("check runs");
+        let off =
+            check_short_time(&map, &ShortTimeOptions::default(), Some(&wrong)).expect("check runs");
         assert!(off.square_sum.pull.expect("pull").abs() > 5.0, "{off:?}");
     }
 

@@ -106,7 +106,11 @@
 //! S(t) = mean over the window's sources of Σ_i C_ij(t), the whole column of
 //! each source (for a single source this is Σ_x C(x,t) of the map). Atom
 //! losses and uncorrected readout error make S(t) < 1; a departure beyond
-//! three bootstrap standard deviations is reported as a warning.
+//! three bootstrap standard deviations is reported as a warning. The check
+//! is weaker than it looks: the column sum adds N − 1 cross-covariances that
+//! vanish on average but each carry sampling noise of about 1/√M, so the
+//! error of S is about √(N/M) (0.2 for 40 sites and 1000 states), far larger
+//! than the error of one C_ij.
 //! Renormalisation, when asked for, divides the map at each time by S(t) and
 //! stores the factor 1/S(t); the pair tensor C_ij(t) is never renormalised.
 //!
@@ -629,7 +633,8 @@ pub struct ShotEstimate {
     /// C(x,t) with bootstrap errors (renormalised when asked for). Points
     /// whose bootstrap spread is exactly zero are masked out with a warning.
     pub map: CorrelationMap,
-    /// Number of sources averaged at each offset of the map.
+    /// Number of (source, offset) pairs averaged at each offset of the map:
+    /// the sources with 0 ≤ j + x < N, counted at x and −x when symmetrised.
     pub sources_per_offset: Vec<usize>,
     pub pairs: PairCorrelations,
     pub sum_rule: Vec<SumRuleEstimate>,

@@ -187,7 +187,7 @@ fn kronrod15(f: &mut impl FnMut(f64) -> f64, a: f64, b: f64) -> (f64, f64) {
     }
     let kron = kron * h;
     let resasc = resasc * h.abs();
-    let mut err = ((kron - gauss * h)).abs();
+    let mut err = (kron - gauss * h).abs();
     if resasc > 0.0 && err > 0.0 {
         err = resasc * (200.0 * err / resasc).powf(1.5).min(1.0);
     }
@@ -243,7 +243,12 @@ pub fn integrate_adaptive(
         evaluations += 15;
         value += v;
         error += e;
-        heap.push(Panel { a: w[0], b: w[1], value: v, error: e });
+        heap.push(Panel {
+            a: w[0],
+            b: w[1],
+            value: v,
+            error: e,
+        });
     }
     let mut converged = error <= abs_tol.max(rel_tol * value.abs());
     while !converged && heap.len() < max_panels.max(1) {
@@ -252,14 +257,29 @@ pub fn integrate_adaptive(
         let (v1, e1) = kronrod15(&mut f, worst.a, mid);
         let (v2, e2) = kronrod15(&mut f, mid, worst.b);
         evaluations += 30;
-        heap.push(Panel { a: worst.a, b: mid, value: v1, error: e1 });
-        heap.push(Panel { a: mid, b: worst.b, value: v2, error: e2 });
+        heap.push(Panel {
+            a: worst.a,
+            b: mid,
+            value: v1,
+            error: e1,
+        });
+        heap.push(Panel {
+            a: mid,
+            b: worst.b,
+            value: v2,
+            error: e2,
+        });
         // Re-sum rather than update, so that rounding in long runs cannot drift.
         value = heap.iter().map(|p| p.value).sum();
         error = heap.iter().map(|p| p.error).sum();
         converged = error <= abs_tol.max(rel_tol * value.abs());
     }
-    QuadratureResult { value, error, evaluations, converged }
+    QuadratureResult {
+        value,
+        error,
+        evaluations,
+        converged,
+    }
 }
 
 #[cfg(test)]
@@ -273,11 +293,21 @@ mod tests {
         for n in [1usize, 2, 5, 10, 17, 40] {
             let rule = GaussLegendre::new(n);
             let wsum: f64 = rule.weights().iter().sum();
-            assert!(close(wsum, 2.0, 1e-14, 0.0), "n = {n}: weights sum to {wsum}");
+            assert!(
+                close(wsum, 2.0, 1e-14, 0.0),
+                "n = {n}: weights sum to {wsum}"
+            );
             for k in 0..(2 * n) {
                 let got = rule.integrate(|x| x.powi(k as i32), -1.0, 1.0);
-                let want = if k % 2 == 0 { 2.0 / (k as f64 + 1.0) } else { 0.0 };
-                assert!(close(got, want, 1e-13, 1e-14), "n = {n}, k = {k}: {got} vs {want}");
+                let want = if k % 2 == 0 {
+                    2.0 / (k as f64 + 1.0)
+                } else {
+                    0.0
+                };
+                assert!(
+                    close(got, want, 1e-13, 1e-14),
+                    "n = {n}, k = {k}: {got} vs {want}"
+                );
             }
             // Degree 2n is not integrated exactly; the error is
             // 2^{2n+1} (n!)^4 / ((2n+1) ((2n)!)^2) for x^{2n} (A&S 25.4.30),
@@ -289,7 +319,10 @@ mod tests {
                 let predicted = 2f64.powi(k as i32 + 1) * fact(n).powi(4)
                     / ((k as f64 + 1.0) * fact(k).powi(2));
                 let actual = 2.0 / (k as f64 + 1.0) - got;
-                assert!(close(actual, predicted, 1e-6, 0.0), "n = {n}: error {actual:e} vs {predicted:e}");
+                assert!(
+                    close(actual, predicted, 1e-6, 0.0),
+                    "n = {n}: error {actual:e} vs {predicted:e}"
+                );
             }
         }
     }
@@ -317,7 +350,10 @@ mod tests {
             kronrod15(&mut g, -1.0, 1.0).0
         };
         for k in (0..=22).step_by(2) {
-            assert!(close(f_k(k), 2.0 / (k as f64 + 1.0), 1e-14, 0.0), "K15 degree {k}");
+            assert!(
+                close(f_k(k), 2.0 / (k as f64 + 1.0), 1e-14, 0.0),
+                "K15 degree {k}"
+            );
         }
         let gauss = |k: i32| {
             let mut s = WG7[3] * 0f64.powi(k);
@@ -327,7 +363,10 @@ mod tests {
             s
         };
         for k in (0..=12).step_by(2) {
-            assert!(close(gauss(k), 2.0 / (k as f64 + 1.0), 1e-14, 1e-300), "G7 degree {k}");
+            assert!(
+                close(gauss(k), 2.0 / (k as f64 + 1.0), 1e-14, 1e-300),
+                "G7 degree {k}"
+            );
         }
     }
 

@@ -60,7 +60,7 @@ const DIGAMMA_ASYMPTOTIC: [f64; 8] = [
 /// multiplications.
 #[must_use]
 pub fn gamma(x: f64) -> f64 {
-    if !(x >= 10.0) {
+    if x.is_nan() || x < 10.0 {
         return puruspe::gamma(x);
     }
     if x > 171.7 {
@@ -252,13 +252,16 @@ mod tests {
             (9.75, 207_358.599_890_248_68),
             (10.0, 362_880.0),
             (12.5, 136_843_365.465_565_86),
-            (50.5, 4.290_462_912_351_959_8e63),
+            (50.5, 4.290_462_912_351_96e63),
             (100.25, 2.948_466_281_838_77e156),
             (170.3, 1.991_587_557_235_89e305),
         ];
         for (x, want) in cases {
             let got = gamma(x);
-            assert!(close(got, want, 1e-15, 0.0), "gamma({x}) = {got:e}, want {want:e}");
+            assert!(
+                close(got, want, 1e-15, 0.0),
+                "gamma({x}) = {got:e}, want {want:e}"
+            );
         }
         assert!(gamma(172.0).is_infinite());
     }
@@ -280,11 +283,14 @@ mod tests {
             (14.5, 23.862_765_841_689_085),
             (15.5, 26.536_914_491_115_614),
             (100.25, 360.284_559_637_764_23),
-            (1000.5, 5908.674_175_848_677),
+            (1000.5, 5_908.674_175_848_677),
         ];
         for (x, want) in cases {
             let got = ln_gamma(x);
-            assert!(close(got, want, 2e-16, 0.0), "ln_gamma({x}) = {got}, want {want}");
+            assert!(
+                close(got, want, 2e-16, 0.0),
+                "ln_gamma({x}) = {got}, want {want}"
+            );
         }
         // Continuity of the two branches at x = 15 (both are accurate there).
         let below = puruspe::gamma(15.0).ln();
@@ -310,9 +316,14 @@ mod tests {
     fn digamma_matches_handbook_values() {
         // ψ(1) = −γ, ψ(1/2) = −γ − 2 ln 2 (A&S 6.3.2, 6.3.3).
         assert!(close(digamma(1.0), -EULER_GAMMA, 1e-15, 0.0));
-        assert!(close(digamma(0.5), -EULER_GAMMA - 2.0 * 2f64.ln(), 1e-15, 0.0));
+        assert!(close(
+            digamma(0.5),
+            -EULER_GAMMA - 2.0 * 2f64.ln(),
+            1e-15,
+            0.0
+        ));
         // ψ(20.7) = 3.00578467484073188 (mpmath 1.3, 30 digits).
-        assert!(close(digamma(20.7), 3.005_784_674_840_731_9, 1e-15, 0.0));
+        assert!(close(digamma(20.7), 3.005_784_674_840_732, 1e-15, 0.0));
     }
 
     #[test]
@@ -325,7 +336,12 @@ mod tests {
         assert!(close(sin_pi_product(7.0, m), want, 1e-7, 0.0));
         assert!(close(sin_pi(0.5), 1.0, 1e-16, 0.0));
         assert!(close(cos_pi(1.0 / 3.0), 0.5, 1e-15, 0.0));
-        assert!(close(cos_pi_product(3.0, 0.5 + 1e-12), (3.0 * PI * 1e-12).sin(), 1e-3, 0.0));
+        assert!(close(
+            cos_pi_product(3.0, 0.5 + 1e-12),
+            (3.0 * PI * 1e-12).sin(),
+            1e-3,
+            0.0
+        ));
     }
 
     #[test]
