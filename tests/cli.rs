@@ -318,3 +318,84 @@ fn correlate_refuses_bad_shots_and_bad_options_with_exit_2() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("readout"));
 }
+
+#[test]
+fn simulate_stable_samples_the_closed_forms() {
+    // μ = 1: Cauchy s/(π(s² + x²)) with s = D t; μ = 2: Gaussian of
+    // variance 2Dt (DESIGN.md conventions, closed forms).
+    let cauchy = simulate(&[
+        "stable",
+        "--mu",
+        "1",
+        "--diffusion",
+        "0.5",
+        "--x-max",
+        "5",
+        "--times",
+        "2,4",
+    ]);
+    for (ti, &t) in cauchy.times().iter().enumerate() {
+        let s = 0.5 * t;
+        for (xi, &x) in cauchy.offsets().iter().enumerate() {
+            let want = s / (std::f64::consts::PI * (s * s + f64::from(x).powi(2)));
+            assert!(
+                (cauchy.values()[(ti, xi)] - want).abs() < 1e-14 * want.max(1e-300),
+                "x = {x}"
+            );
+        }
+    }
+    let gauss = simulate(&[
+        "stable",
+        "--mu",
+        "2",
+        "--diffusion",
+        "1.5",
+        "--x-max",
+        "4",
+        "--times",
+        "1",
+    ]);
+    let want = (-9.0f64 / (4.0 * 1.5)).exp() / (2.0 * (std::f64::consts::PI * 1.5).sqrt());
+    let col = gauss.column_of(3).expect("x = 3");
+    assert!((gauss.values()[(0, col)] - want).abs() < 1e-14 * want);
+}
+
+#[test]
+fn simulate_uses_a_measured_coupling_matrix() {
+    // A matrix equal to the nearest-neighbour power law must reproduce the
+    // power-law run exactly (same couplings, same engine path).
+    let dir = tempfile::tempdir().expect("temp dir");
+    let matrix = dir.path().join("J.csv");
+    let n = 6;
+    let rows: Vec<String> = (0..n)
+        .map(|i: i32| {
+            (0..n)
+                .map(|j: i32| if (i - j).abs() == 1 { "1" } else { "0" })
+                .collect::<Vec<_>>()
+                .join(",")
+        })
+        .collect();
+    std::fs::write(&matrix, rows.join("\n") + "\n").expect("writes");
+    let from_matrix = simulate(&[
+        "spin-chain",
+        "--coupling-matrix",
+        matrix.to_str().expect("utf-8"),
+        "--times",
+        "0.5,1",
+        "--method",
+        "exact",
+    ]);
+    let from_law = simulate(&[
+        "spin-chain",
+        "--sites",
+        "6",
+        "--times",
+        "0.5,1",
+        "--method",
+        "exact",
+    ]);
+    let diff = (from_matrix.values() - from_law.values())
+        .mapv(f64::abs)
+        .fold(0.0f64, |m, &v| m.max(v));
+    assert!(diff < 1e-12, "{diff}");
+}

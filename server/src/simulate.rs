@@ -12,12 +12,18 @@ use std::sync::atomic::AtomicBool;
 use clap::{Args, ValueEnum};
 use spreadscope_physics::CorrelationMap;
 
+use spreadscope_physics::model::stable::StableDensity;
+
 use crate::cli::CliError;
+use crate::ingest::couplings::{CouplingsImportOptions, parse_couplings};
 use crate::service::CONVENTIONS;
 use crate::service::theory::{ModelSpec, SpinMethod, TheoryModel, model_map};
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum Model {
+    /// Sampled scaling form C(x,t) = f(x; μ, (D t)^{1/μ}) at integer x,
+    /// f the symmetric stable density (Gaussian at μ = 2).
+    Stable,
     /// Classical random walk with rates γ0 |i−j|^(−2α) on the open chain.
     LatticeWalk,
     /// Infinite-temperature spin-chain dynamics (exact ≤ 14 sites, typicality ≤ 22;
@@ -40,9 +46,21 @@ pub enum Method {
 pub struct SimulateArgs {
     /// Which model.
     pub model: Model,
-    /// Number of sites of the open chain.
-    #[arg(long)]
+    /// Number of sites of the open chain (chain models).
+    #[arg(long, default_value_t = 0)]
     pub sites: usize,
+    /// A measured N×N coupling matrix (CSV) replacing the power law.
+    #[arg(long)]
+    pub coupling_matrix: Option<PathBuf>,
+    /// Stable index μ = z of the `stable` model (0.3 ≤ μ ≤ 2).
+    #[arg(long, default_value_t = 2.0)]
+    pub mu: f64,
+    /// Transport coefficient D of the `stable` model (sites^μ per time unit).
+    #[arg(long, default_value_t = 1.0)]
+    pub diffusion: f64,
+    /// Largest |x| of the `stable` model.
+    #[arg(long, default_value_t = 50)]
+    pub x_max: i32,
     /// Coupling exponent α of J_ij = J/|i−j|^α; `inf` keeps nearest neighbours.
     #[arg(long, default_value = "inf", allow_hyphen_values = true)]
     pub alpha: f64,
@@ -169,14 +187,34 @@ pub fn to_long_csv(map: &CorrelationMap, header: &[String]) -> String {
 /// Bad options (exit 2) or a failure writing the file.
 pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     let times = parse_times(&args.times).map_err(CliError::Input)?;
-    let source = args.source.unwrap_or(args.sites.saturating_sub(1) / 2);
+    let matrix = match &args.coupling_matrix {
+        None => None,
+        Some(path) => {
+            let name = path.display().to_string();
+            let file = std::fs::File::open(path)
+                .map_err(|e| CliError::Input(format!("--coupling-matrix {name}: {e}")))?;
+            let read = parse_couplings(
+                std::io::BufReader::new(file),
+                &CouplingsImportOptions::default(),
+            )
+            .map_err(|e| CliError::Input(format!("--coupling-matrix {name}: {e}")))?;
+            Some(read.couplings)
+        }
+    };
+    let sites = match &matrix {
+        Some(m) if args.sites == 0 => m.sites(),
+        _ => args.sites,
+    };
+    let source = args.source.unwrap_or(sites.saturating_sub(1) / 2);
     let spec = ModelSpec {
         model: match args.model {
             Model::LatticeWalk => TheoryModel::LatticeWalk,
             Model::SpinChain => TheoryModel::SpinChain,
             Model::ShortTime => TheoryModel::ShortTime,
+            Model::Stable => return stable(args, &times),
         },
-        sites: args.sites,
+        matrix,
+        sites,
         source,
         alpha: args.alpha,
         coupling: args.coupling,
@@ -225,17 +263,67 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
             "Made by `spreadscope simulate` ({}): {how}; {} sites, source {source}, alpha {alpha_text}, \
              J {}, Delta {}, seed {}.",
             env!("CARGO_PKG_VERSION"),
-            args.sites,
+            sites,
             args.coupling,
             args.delta,
             args.seed
         ),
         format!("Conventions: {CONVENTIONS}"),
         "synthetic: true".into(),
-        format!("chain_length: {}", args.sites),
+        format!("chain_length: {sites}"),
         format!("source_site: {source}"),
-        format!("alpha: {alpha_text}"),
-        format!("notes: simulated ({how})"),
+    ]
+    .into_iter()
+    .chain((args.coupling_matrix.is_none()).then(|| format!("alpha: {alpha_text}")))
+    .chain(std::iter::once(format!("notes: simulated ({how})")))
+    .collect::<Vec<_>>();
+    std::fs::write(&args.out, to_long_csv(&map, &header))
+        .map_err(|e| CliError::Failure(format!("{}: {e}", args.out.display())))
+}
+
+/// `simulate stable`: the scaling form sampled at integer offsets.
+fn stable(args: &SimulateArgs, times: &[f64]) -> Result<(), CliError> {
+    if !(args.diffusion.is_finite() && args.diffusion > 0.0) {
+        return Err(CliError::Input(format!(
+            "--diffusion {}: must be a positive number",
+            args.diffusion
+        )));
+    }
+    if args.x_max < 0 || args.x_max > 100_000 {
+        return Err(CliError::Input(format!(
+            "--x-max {}: between 0 and 100000",
+            args.x_max
+        )));
+    }
+    if times.iter().any(|&t| t <= 0.0) {
+        return Err(CliError::Input(
+            "--times: the stable model needs times > 0".into(),
+        ));
+    }
+    let offsets: Vec<i32> = (-args.x_max..=args.x_max).collect();
+    let mut values = ndarray::Array2::zeros((times.len(), offsets.len()));
+    for (ti, &t) in times.iter().enumerate() {
+        let density = StableDensity::new(args.mu, (args.diffusion * t).powf(1.0 / args.mu))
+            .map_err(|e| CliError::Input(format!("--mu {}: {e}", args.mu)))?;
+        for (xi, &x) in offsets.iter().enumerate() {
+            values[(ti, xi)] = density.pdf(f64::from(x));
+        }
+    }
+    let map = CorrelationMap::complete(offsets, times.to_vec(), values, None)
+        .map_err(|e| CliError::Input(format!("--times: {e}")))?;
+    let header = vec![
+        format!(
+            "Made by `spreadscope simulate stable` ({}): C(x,t) = f(x; mu, (D t)^(1/mu)), mu {}, D {}.",
+            env!("CARGO_PKG_VERSION"),
+            args.mu,
+            args.diffusion
+        ),
+        format!("Conventions: {CONVENTIONS}"),
+        "synthetic: true".into(),
+        format!(
+            "notes: stable scaling form, mu {}, D {}",
+            args.mu, args.diffusion
+        ),
     ];
     std::fs::write(&args.out, to_long_csv(&map, &header))
         .map_err(|e| CliError::Failure(format!("{}: {e}", args.out.display())))

@@ -54,6 +54,9 @@ pub struct ModelSpec {
     pub method: SpinMethod,
     pub samples: usize,
     pub seed: u64,
+    /// A measured coupling matrix replacing the power law (its size must
+    /// equal `sites`); the lattice walk then uses rates ∝ J_ij².
+    pub matrix: Option<Couplings>,
 }
 
 /// Runs a model over the whole chain at `times`. Returns the map
@@ -80,8 +83,18 @@ pub fn model_map(
             spec.source, spec.sites
         ));
     }
-    let couplings = Couplings::power_law(spec.sites, spec.coupling, spec.alpha)
-        .map_err(|e| format!("alpha/coupling: {e}"))?;
+    let couplings = match &spec.matrix {
+        Some(m) if m.sites() != spec.sites => {
+            return Err(format!(
+                "sites {}: the coupling matrix has {} sites",
+                spec.sites,
+                m.sites()
+            ));
+        }
+        Some(m) => m.clone(),
+        None => Couplings::power_law(spec.sites, spec.coupling, spec.alpha)
+            .map_err(|e| format!("alpha/coupling: {e}"))?,
+    };
     let text = |e: &dyn std::fmt::Display| e.to_string();
     match spec.model {
         TheoryModel::LatticeWalk => {
@@ -104,7 +117,9 @@ pub fn model_map(
             ))
         }
         TheoryModel::SpinChain => {
-            let free = spec.alpha.is_infinite() && spec.delta.abs() < f64::MIN_POSITIVE;
+            let free = spec.matrix.is_none()
+                && spec.alpha.is_infinite()
+                && spec.delta.abs() < f64::MIN_POSITIVE;
             let method = match spec.method {
                 SpinMethod::Auto if free => None,
                 SpinMethod::Auto if spec.sites <= spin_chain::MAX_EXACT_SITES => {
@@ -243,6 +258,7 @@ impl Service {
             method: request.method,
             samples: request.samples,
             seed: request.seed,
+            matrix: None,
         };
         let session_id = access.session.id;
         let cancel = match &request.job {
