@@ -8,4 +8,5 @@ mod cli;
 mod crash;
 mod fits;
 mod load;
+mod parsers_prop;
 mod support;
