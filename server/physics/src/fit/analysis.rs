@@ -185,7 +185,7 @@ pub enum AnalysisError {
     BadTimeRange { t_min: f64, t_max: f64 },
     #[error("x_max = {0} must be ≥ 0")]
     BadXMax(i32),
-    #[error("--source {source_site} is given without --sites")]
+    #[error("source site {source_site} is given without the chain length (sites)")]
     SourceWithoutSites { source_site: usize },
     #[error("source site {source_site} is outside the chain of {sites} sites")]
     SourceOutOfRange { source_site: usize, sites: usize },
@@ -731,7 +731,11 @@ impl AnalysisReport {
                 &mut out,
                 "collapse (H&H S)",
                 plus_minus(c.fit.z, c.fit.z_err),
-                format!("error: {}", c.fit.z_err_source),
+                if c.fit.termination == Termination::MinimumAtBoundary {
+                    "z at edge of search".to_string()
+                } else {
+                    format!("error: {}", c.fit.z_err_source)
+                },
                 format!("S_min = {}", num(c.quality)),
             ),
             None => row(
@@ -750,6 +754,7 @@ impl AnalysisReport {
             for r in reports {
                 let z = match r.model {
                     ProfileModel::Gaussian => "2 (fixed)".to_string(),
+                    ProfileModel::Stable if r.mu_at_bound => format!("{} (bound)", num(r.mu)),
                     ProfileModel::Stable => plus_minus(r.mu, r.mu_err),
                 };
                 row(
@@ -913,7 +918,6 @@ mod tests {
             ..AnalysisOptions::default()
         };
         let report = analyze(&map, &options).expect("analysis runs");
-        eprintln!("{}", report.render_text());
         let codes: Vec<WarningCode> = report.warnings.iter().map(|w| w.code).collect();
         assert!(codes.contains(&WarningCode::ExponentDrift), "{codes:?}");
         assert!(codes.contains(&WarningCode::ReachesEdges), "{codes:?}");

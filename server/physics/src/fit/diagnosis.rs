@@ -239,27 +239,31 @@ impl Edges {
     }
 }
 
-/// Fraction of the positive weight Σ C within the two edge zones (each
-/// [`EDGE_ZONE`] of the span wide, at least one site) at time index `ti`;
+/// Fraction of the weight Σ C within the two edge zones (each
+/// [`EDGE_ZONE`] of the span wide, at least one site) at time index `ti`,
+/// reduced by three standard errors of the edge sum when errors are known,
+/// so that noise alone (whose signed sum averages out) does not count as
+/// weight at the edges. Signed values are summed for the same reason.
 /// `None` when the map has no present offset in either zone or no positive
-/// weight.
+/// total weight.
 #[must_use]
 pub fn edge_fraction(map: &CorrelationMap, ti: usize, edges: Edges) -> Option<f64> {
     let span = f64::from(edges.right - edges.left + 1);
     let zone = ((EDGE_ZONE * span).round() as i32).max(1);
-    let (mut total, mut outer, mut seen) = (0.0, 0.0, false);
+    let (mut total, mut outer, mut outer_var, mut seen) = (0.0, 0.0, 0.0, false);
     for (xi, &x) in map.offsets().iter().enumerate() {
-        let Some((c, _)) = map.get(ti, xi) else {
+        let Some((c, err)) = map.get(ti, xi) else {
             continue;
         };
-        let c = c.max(0.0);
         total += c;
         if x < edges.left + zone || x > edges.right - zone {
             outer += c;
+            outer_var += err.unwrap_or(0.0).powi(2);
             seen = true;
         }
     }
-    (seen && total > 0.0).then(|| outer / total)
+    let significant = (outer - 3.0 * outer_var.sqrt()).max(0.0);
+    (seen && total > 0.0).then(|| significant / total)
 }
 
 /// Has the spread reached the edges by the last time of `window`? A

@@ -48,7 +48,7 @@ pub enum ShortTimeCheckError {
     #[error("the map has no x = 0 column, so C(0,t) is unknown")]
     NoAutocorrelation,
     #[error(
-        "only {0} early times (t ≤ t_max, C(0,t) ≥ 1 − max_drop); the t² fit needs at least 3 — measure earlier times"
+        "{0} early time(s) (t ≤ t_max, C(0,t) ≥ 1 − max_drop) where the t² fit needs at least 3: measure earlier times"
     )]
     TooFewTimes(usize),
     #[error("polynomial order {0} is not available: use 2 or 4")]
