@@ -75,11 +75,18 @@ pub struct DatasetRow {
     pub notes: Vec<String>,
 }
 
-/// The single owner of the database connection.
+/// The single owner of the database connections: one writer, and a few
+/// read-only connections so that readers never wait behind a write's
+/// flush to disk (write-ahead logging lets them read the last commit).
 #[derive(Debug)]
 pub struct Store {
     conn: Mutex<Connection>,
+    readers: Vec<Mutex<Connection>>,
+    next_reader: std::sync::atomic::AtomicUsize,
 }
+
+/// Read-only connections of a file database.
+const READERS: usize = 4;
 
 impl Store {
     /// Opens (creating if needed) the database file `spreadscope.sqlite3`
@@ -89,11 +96,23 @@ impl Store {
     /// The directory or file cannot be opened, or a migration fails.
     pub fn open_dir(dir: &Path) -> StoreResult<Self> {
         let path = dir.join("spreadscope.sqlite3");
-        let conn = Connection::open(&path).map_err(|source| StoreError::Open {
+        let open_error = |source| StoreError::Open {
             path: path.display().to_string(),
             source,
-        })?;
-        Self::init(conn)
+        };
+        let conn = Connection::open(&path).map_err(open_error)?;
+        let mut store = Self::init(conn)?;
+        for _ in 0..READERS {
+            let reader = Connection::open_with_flags(
+                &path,
+                rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY
+                    | rusqlite::OpenFlags::SQLITE_OPEN_NO_MUTEX,
+            )
+            .map_err(open_error)?;
+            reader.busy_timeout(std::time::Duration::from_secs(5))?;
+            store.readers.push(Mutex::new(reader));
+        }
+        Ok(store)
     }
 
     /// An in-memory database, for tests.
@@ -119,7 +138,29 @@ impl Store {
         }
         Ok(Self {
             conn: Mutex::new(conn),
+            readers: Vec::new(),
+            next_reader: std::sync::atomic::AtomicUsize::new(0),
         })
+    }
+
+    /// A connection for reading: a free read-only one if any, else the next
+    /// in turn; the writer when there are none (in-memory databases).
+    fn read(&self) -> std::sync::MutexGuard<'_, Connection> {
+        if self.readers.is_empty() {
+            return self.lock();
+        }
+        for reader in &self.readers {
+            if let Ok(guard) = reader.try_lock() {
+                return guard;
+            }
+        }
+        let k = self
+            .next_reader
+            .fetch_add(1, std::sync::atomic::Ordering::Relaxed)
+            % self.readers.len();
+        self.readers[k]
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner)
     }
 
     fn lock(&self) -> std::sync::MutexGuard<'_, Connection> {
@@ -180,7 +221,7 @@ impl Store {
     /// # Errors
     /// Database failure.
     pub fn sessions(&self) -> StoreResult<Vec<SessionRow>> {
-        let conn = self.lock();
+        let conn = self.read();
         let mut stmt = conn.prepare(
             "SELECT id, name, edit_token, view_token, created_at FROM sessions ORDER BY id",
         )?;
@@ -195,7 +236,7 @@ impl Store {
     /// # Errors
     /// Database failure.
     pub fn session_by_token(&self, token: &str) -> StoreResult<Option<SessionRow>> {
-        let conn = self.lock();
+        let conn = self.read();
         Ok(conn
             .query_row(
                 "SELECT id, name, edit_token, view_token, created_at FROM sessions
@@ -253,7 +294,7 @@ impl Store {
     /// # Errors
     /// Database failure or corrupt rows.
     pub fn datasets(&self, session_id: i64) -> StoreResult<Vec<(DatasetRow, CorrelationMap)>> {
-        let conn = self.lock();
+        let conn = self.read();
         let mut stmt = conn.prepare(&format!(
             "{DATASET_SELECT} WHERE session_id = ?1 ORDER BY id"
         ))?;
@@ -271,7 +312,7 @@ impl Store {
         session_id: i64,
         id: i64,
     ) -> StoreResult<Option<(DatasetRow, CorrelationMap)>> {
-        let conn = self.lock();
+        let conn = self.read();
         let raw = conn
             .query_row(
                 &format!("{DATASET_SELECT} WHERE session_id = ?1 AND id = ?2"),
@@ -309,7 +350,7 @@ impl Store {
     /// # Errors
     /// Database failure.
     pub fn shot_file_count(&self, session_id: i64) -> StoreResult<i64> {
-        Ok(self.lock().query_row(
+        Ok(self.read().query_row(
             "SELECT COUNT(*) FROM shot_files WHERE session_id = ?1",
             params![session_id],
             |r| r.get(0),
@@ -445,7 +486,7 @@ impl Store {
     /// # Errors
     /// Database failure.
     pub fn log(&self, session_id: i64) -> StoreResult<Vec<LogRow>> {
-        let conn = self.lock();
+        let conn = self.read();
         let mut stmt = conn.prepare(
             "SELECT id, created_at, author, comment, dataset_id, dataset_name, dataset_hash,
                     retracts, fit_json, program_version
