@@ -513,3 +513,94 @@ async fn a_shot_upload_becomes_a_dataset_and_keeps_its_shots() {
         "the bad file stored nothing"
     );
 }
+
+#[tokio::test]
+async fn site_resolved_shot_correlations_and_coupling_fits() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let shots = std::fs::read(crate::support::repo_path("tests/reference/shots/shots.csv"))
+        .expect("fixture");
+    let uri = format!("/api/s/{edit}/shots?name=run.csv&bootstrap=10&source=0");
+    let (_, summary) = send_json(&app.router, Method::POST, &uri, shots).await;
+    let id = summary["id"].as_i64().expect("id");
+    let (status, pairs) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/datasets/{id}/shots?source=0"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{pairs}");
+    // With one source j = 0, the dataset's C(x,t) is C_{x,0}(t): the
+    // re-estimate from the kept shots must give the same numbers.
+    let (_, detail) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/datasets/{id}"),
+        "",
+    )
+    .await;
+    let x = detail["x"].as_array().expect("x");
+    for (ti, row) in detail["C"].as_array().expect("C").iter().enumerate() {
+        for (xi, v) in row.as_array().expect("row").iter().enumerate() {
+            let (Some(v), Some(i)) = (v.as_f64(), x[xi].as_i64()) else {
+                continue;
+            };
+            let pair = pairs["C"][ti][usize::try_from(i).expect("i ≥ 0")]
+                .as_f64()
+                .expect("pair");
+            assert!(
+                (pair - v).abs() < 1e-15,
+                "t index {ti}, x {i}: {pair} vs {v}"
+            );
+        }
+    }
+    let (status, _) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/datasets/{id}/shots?source=99"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
+
+    // A noiseless power law J/|i−j|^1.5 with J = 2 is fitted exactly.
+    let n = 6;
+    let csv: String = (0..n)
+        .map(|i: i32| {
+            (0..n)
+                .map(|j: i32| {
+                    if i == j {
+                        "0".to_string()
+                    } else {
+                        format!("{:?}", 2.0 / f64::from((i - j).abs()).powf(1.5))
+                    }
+                })
+                .collect::<Vec<_>>()
+                .join(",")
+                + "\n"
+        })
+        .collect();
+    let (status, fit) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{view}/couplings"),
+        csv,
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    assert!(
+        (fit["fit"]["alpha"].as_f64().expect("alpha") - 1.5).abs() < 1e-9,
+        "{fit}"
+    );
+    assert!((fit["fit"]["J"].as_f64().expect("J") - 2.0).abs() < 1e-9);
+    let (status, bad) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{view}/couplings"),
+        "0,1\n1,x\n",
+    )
+    .await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
+    assert_eq!(bad["problems"][0]["line"], 2);
+}

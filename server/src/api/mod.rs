@@ -68,6 +68,8 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
             post(upload_shots).layer(DefaultBodyLimit::max(config.max_upload_bytes)),
         )
         .route("/s/{token}/datasets/{id}", get(get_dataset))
+        .route("/s/{token}/datasets/{id}/shots", get(shot_pairs))
+        .route("/s/{token}/couplings", post(couplings))
         .route("/s/{token}/datasets/{id}/meta", put(update_meta))
         .route("/s/{token}/events", get(events))
         .route("/s/{token}/log", get(get_log).post(pin))
@@ -356,6 +358,32 @@ async fn upload_shots(
         .add_shots(&access, &name, format, body.to_vec(), options)
         .await?;
     Ok((StatusCode::CREATED, Json(json!(summary))).into_response())
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct PairsQuery {
+    source: Option<usize>,
+}
+
+async fn shot_pairs(
+    State(service): State<Service>,
+    Path((token, id)): Path<(String, i64)>,
+    query: Result<Query<PairsQuery>, axum::extract::rejection::QueryRejection>,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let Query(q) =
+        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    Ok(Json(service.shot_pairs(&access, id, q.source).await?))
+}
+
+async fn couplings(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+    body: Bytes,
+) -> ApiResult<Json<Value>> {
+    service.access(&token).await?;
+    Ok(Json(service.couplings(body.to_vec()).await?))
 }
 
 /// `A:B` (inclusive range) or `a,b,c`.

@@ -4,17 +4,20 @@
 //! Also the option spellings shared by the API and `spreadscope correlate`.
 
 use serde::Deserialize;
+use serde_json::{Value, json};
+use spreadscope_physics::fit::couplings_fit::{CouplingsFitOptions, fit_power_law};
 use spreadscope_physics::model::shots::{
     EstimateOptions, Readout, ShotEstimate, SourceWindow, estimate,
 };
 
 use super::{Access, DatasetSummary, Service, ServiceError, ServiceResult, content_hash, now_utc};
 use crate::dataset::DatasetMeta;
+use crate::ingest::couplings::{CouplingsImportOptions, parse_couplings};
 use crate::ingest::shots::{ShotFormat, ShotsIngested};
 use crate::store::NewDataset;
 
 /// Estimator options as people type them (query string or command line).
-#[derive(Debug, Clone, Default, Deserialize)]
+#[derive(Debug, Clone, Default, Deserialize, serde::Serialize)]
 #[serde(deny_unknown_fields)]
 pub struct ShotOptions {
     /// One source site j.
@@ -120,6 +123,90 @@ pub fn correlate(
 }
 
 impl Service {
+    /// The site-resolved correlations C_{i,source}(t) of a dataset made from
+    /// shots, re-estimated from the kept shot file with its upload options.
+    ///
+    /// # Errors
+    /// NotFound when the dataset has no shots; BadRequest for a bad source.
+    pub async fn shot_pairs(
+        &self,
+        access: &Access,
+        dataset: i64,
+        source: Option<usize>,
+    ) -> ServiceResult<Value> {
+        let session_id = access.session.id;
+        let (format, bytes, options) = self
+            .db(move |s| s.shot_file(session_id, dataset))
+            .await?
+            .ok_or(ServiceError::NotFound)?;
+        let format = match format.as_str() {
+            "shots-npz" => ShotFormat::Npz,
+            "shots-h5" => ShotFormat::Hdf5,
+            _ => ShotFormat::Csv,
+        };
+        let options: ShotOptions = serde_json::from_str(&options)
+            .map_err(|e| ServiceError::Internal(format!("stored shot options: {e}")))?;
+        self.heavy(move || {
+            let (ingested, result) = correlate(&bytes, format, &options)?;
+            let sites = ingested.records.sites();
+            let source = source.unwrap_or(sites.saturating_sub(1) / 2);
+            if source >= sites {
+                return Err(ServiceError::BadRequest(format!(
+                    "parameter `source`: {source} is outside a chain of {sites} sites"
+                )));
+            }
+            let pick = |a: &ndarray::Array3<f64>| -> Vec<Vec<f64>> {
+                (0..a.dim().0)
+                    .map(|ti| (0..sites).map(|i| a[(ti, i, source)]).collect())
+                    .collect()
+            };
+            Ok(json!({
+                "sites": sites,
+                "source": source,
+                "times": result.pairs.times,
+                "C": pick(&result.pairs.values),
+                "err": pick(&result.pairs.errors),
+                "sum_rule": result.sum_rule,
+                "states_per_time": result.states_per_time,
+                "shots_per_time": result.shots_per_time,
+                "warnings": result.warnings,
+                "options": options,
+            }))
+        })
+        .await
+    }
+
+    /// A measured coupling matrix (CSV) and its effective power law
+    /// J/|i−j|^α with errors. Stores nothing.
+    ///
+    /// # Errors
+    /// Invalid with every problem of the file; BadRequest when the fit is
+    /// impossible.
+    pub async fn couplings(&self, bytes: Vec<u8>) -> ServiceResult<Value> {
+        self.heavy(move || {
+            let read = parse_couplings(
+                std::io::Cursor::new(bytes),
+                &CouplingsImportOptions::default(),
+            )
+            .map_err(ServiceError::Invalid)?;
+            let fit = fit_power_law(&read.couplings, None, &CouplingsFitOptions::default())
+                .map_err(|e| ServiceError::BadRequest(format!("power-law fit: {e}")))?;
+            let m = read.couplings.matrix();
+            let matrix: Vec<Vec<f64>> = m.outer_iter().map(|r| r.to_vec()).collect();
+            let mut fit_value =
+                serde_json::to_value(&fit).map_err(|e| ServiceError::Internal(e.to_string()))?;
+            fit_value["J"] = json!(fit.strength);
+            fit_value["J_err"] = json!(fit.strength_err);
+            Ok(json!({
+                "sites": read.couplings.sites(),
+                "matrix": matrix,
+                "fit": fit_value,
+                "notes": read.notes,
+            }))
+        })
+        .await
+    }
+
     /// Stores a shot file and the correlation dataset estimated from it.
     ///
     /// # Errors
@@ -141,6 +228,8 @@ impl Service {
             ShotFormat::Npz => "shots-npz",
             ShotFormat::Hdf5 => "shots-h5",
         };
+        let stored_options =
+            serde_json::to_string(&options).map_err(|e| ServiceError::Internal(e.to_string()))?;
         let (bytes, result, ingested) = self
             .heavy(move || {
                 let (ingested, result) = correlate(&bytes, format, &options)?;
@@ -175,7 +264,7 @@ impl Service {
                     notes: &notes,
                     map: &result.map,
                 })?;
-                s.insert_shot_file(session_id, id, &name, format_label, &bytes, &provenance)?;
+                s.insert_shot_file(session_id, id, &name, format_label, &bytes, &stored_options)?;
                 s.dataset(session_id, id)
             })
             .await?

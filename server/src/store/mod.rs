@@ -345,6 +345,25 @@ impl Store {
         Ok(conn.last_insert_rowid())
     }
 
+    /// The kept shot file of a dataset: (format, bytes, upload options).
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn shot_file(
+        &self,
+        session_id: i64,
+        dataset_id: i64,
+    ) -> StoreResult<Option<(String, Vec<u8>, String)>> {
+        Ok(self
+            .read()
+            .query_row(
+                "SELECT format, bytes, estimator FROM shot_files WHERE session_id = ?1 AND dataset_id = ?2",
+                params![session_id, dataset_id],
+                |r| Ok((r.get(0)?, r.get(1)?, r.get(2)?)),
+            )
+            .optional()?)
+    }
+
     /// Number of shot files a session keeps.
     ///
     /// # Errors

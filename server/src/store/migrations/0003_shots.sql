@@ -7,6 +7,7 @@ CREATE TABLE shot_files (
     name         TEXT NOT NULL,
     format       TEXT NOT NULL,
     bytes        BLOB NOT NULL,
+    -- The estimator options given at upload (JSON), to re-run it.
     estimator    TEXT NOT NULL
 );
 
