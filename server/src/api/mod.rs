@@ -163,6 +163,16 @@ impl IntoResponse for ApiError {
 
 type ApiResult<T> = Result<T, ApiError>;
 
+/// A query string as parsed by axum, kept as a result so that a bad one
+/// becomes our own 422 naming the parameter rather than axum's plain 400.
+type QueryResult<T> = Result<Query<T>, axum::extract::rejection::QueryRejection>;
+
+fn from_query<T>(query: QueryResult<T>) -> Result<T, ServiceError> {
+    query
+        .map(|Query(q)| q)
+        .map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))
+}
+
 /// Parses a JSON request body; a failure names the field (`field \`a.b\``)
 /// as well as serde's reason.
 fn parse_json<T: serde::de::DeserializeOwned>(body: &[u8], what: &str) -> Result<T, ServiceError> {
@@ -271,12 +281,11 @@ struct UploadQuery {
 async fn upload_dataset(
     State(service): State<Service>,
     Path(token): Path<String>,
-    query: Result<Query<UploadQuery>, axum::extract::rejection::QueryRejection>,
+    query: QueryResult<UploadQuery>,
     body: Bytes,
 ) -> ApiResult<Response> {
     let access = service.access(&token).await?;
-    let Query(query) =
-        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    let query = from_query(query)?;
     let name = query.name.unwrap_or_default();
     let format = match &query.format {
         Some(f) => f
@@ -329,12 +338,11 @@ struct ShotQuery {
 async fn upload_shots(
     State(service): State<Service>,
     Path(token): Path<String>,
-    query: Result<Query<ShotQuery>, axum::extract::rejection::QueryRejection>,
+    query: QueryResult<ShotQuery>,
     body: Bytes,
 ) -> ApiResult<Response> {
     let access = service.access(&token).await?;
-    let Query(query) =
-        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    let query = from_query(query)?;
     let name = query.name.unwrap_or_default();
     let format = match &query.format {
         Some(f) => f
@@ -369,11 +377,10 @@ struct PairsQuery {
 async fn shot_pairs(
     State(service): State<Service>,
     Path((token, id)): Path<(String, i64)>,
-    query: Result<Query<PairsQuery>, axum::extract::rejection::QueryRejection>,
+    query: QueryResult<PairsQuery>,
 ) -> ApiResult<Json<Value>> {
     let access = service.access(&token).await?;
-    let Query(q) =
-        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    let q = from_query(query)?;
     Ok(Json(service.shot_pairs(&access, id, q.source).await?))
 }
 
@@ -555,11 +562,10 @@ struct QualityQuery {
 async fn collapse_quality(
     State(service): State<Service>,
     Path((token, id)): Path<(String, i64)>,
-    query: Result<Query<QualityQuery>, axum::extract::rejection::QueryRejection>,
+    query: QueryResult<QualityQuery>,
 ) -> ApiResult<Json<Value>> {
     let access = service.access(&token).await?;
-    let Query(q) =
-        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    let q = from_query(query)?;
     let windows = Windows {
         t_min: q.t_min,
         t_max: q.t_max,
@@ -594,11 +600,10 @@ struct ScalingQuery {
 async fn scaling_function(
     State(service): State<Service>,
     Path(token): Path<String>,
-    query: Result<Query<ScalingQuery>, axum::extract::rejection::QueryRejection>,
+    query: QueryResult<ScalingQuery>,
 ) -> ApiResult<Json<Value>> {
     service.access(&token).await?;
-    let Query(q) =
-        query.map_err(|e| ServiceError::BadRequest(format!("query string: {}", e.body_text())))?;
+    let q = from_query(query)?;
     Ok(Json(service.scaling_function(
         q.mu,
         q.d,

@@ -347,27 +347,16 @@ impl Service {
         let parsed = self
             .heavy(move || ingest::parse(&bytes, format, &options).map_err(ServiceError::Invalid))
             .await?;
-        let row = self
-            .db(move |s| {
-                let hash = content_hash(&parsed.map);
-                let created_at = now_utc();
-                let id = s.insert_dataset(&NewDataset {
-                    session_id,
-                    name: &name,
-                    format: format_label,
-                    content_hash: &hash,
-                    created_at: &created_at,
-                    meta: &parsed.meta,
-                    notes: &parsed.notes,
-                    map: &parsed.map,
-                })?;
-                s.dataset(session_id, id)
-            })
-            .await?
-            .ok_or_else(|| ServiceError::Internal("stored dataset vanished".into()))?;
-        let summary = DatasetSummary::new(&row.0, &row.1);
-        self.publish(session_id, "dataset-added", summary.id);
-        Ok(summary)
+        self.store_dataset(StoredDataset {
+            session_id,
+            name,
+            format: format_label,
+            meta: parsed.meta,
+            notes: parsed.notes,
+            map: parsed.map,
+            shots: None,
+        })
+        .await
     }
 
     /// Summaries of a session's datasets, oldest first.
@@ -476,6 +465,48 @@ impl LoadGuard {
 impl Drop for LoadGuard {
     fn drop(&mut self) {
         self.counter.fetch_sub(1, Ordering::SeqCst);
+    }
+}
+
+/// A dataset on its way into the store.
+struct StoredDataset {
+    session_id: i64,
+    name: String,
+    format: &'static str,
+    meta: DatasetMeta,
+    notes: Vec<String>,
+    map: CorrelationMap,
+    /// The shot file and its estimator options (JSON), for shot datasets.
+    shots: Option<(Vec<u8>, String)>,
+}
+
+impl Service {
+    /// Writes a dataset in one transaction, reads it back and tells every
+    /// open page.
+    async fn store_dataset(&self, d: StoredDataset) -> ServiceResult<DatasetSummary> {
+        let session_id = d.session_id;
+        let (row, map) = self
+            .db(move |s| {
+                let hash = content_hash(&d.map);
+                let created_at = now_utc();
+                let id = s.insert_dataset(&NewDataset {
+                    session_id,
+                    name: &d.name,
+                    format: d.format,
+                    content_hash: &hash,
+                    created_at: &created_at,
+                    meta: &d.meta,
+                    notes: &d.notes,
+                    map: &d.map,
+                    shots: d.shots.as_ref().map(|(b, o)| (b.as_slice(), o.as_str())),
+                })?;
+                s.dataset(session_id, id)
+            })
+            .await?
+            .ok_or_else(|| ServiceError::Internal("stored dataset vanished".into()))?;
+        let summary = DatasetSummary::new(&row, &map);
+        self.publish(session_id, "dataset-added", summary.id);
+        Ok(summary)
     }
 }
 

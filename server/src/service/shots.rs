@@ -10,11 +10,10 @@ use spreadscope_physics::model::shots::{
     EstimateOptions, Readout, ShotEstimate, SourceWindow, estimate,
 };
 
-use super::{Access, DatasetSummary, Service, ServiceError, ServiceResult, content_hash, now_utc};
+use super::{Access, DatasetSummary, Service, ServiceError, ServiceResult, StoredDataset};
 use crate::dataset::DatasetMeta;
 use crate::ingest::couplings::{CouplingsImportOptions, parse_couplings};
 use crate::ingest::shots::{ShotFormat, ShotsIngested};
-use crate::store::NewDataset;
 
 /// Estimator options as people type them (query string or command line).
 #[derive(Debug, Clone, Default, Deserialize, serde::Serialize)]
@@ -250,27 +249,15 @@ impl Service {
             notes: "Correlations estimated from uploaded shot records.".into(),
             ..DatasetMeta::default()
         };
-        let row = self
-            .db(move |s| {
-                let hash = content_hash(&result.map);
-                let created_at = now_utc();
-                let id = s.insert_dataset(&NewDataset {
-                    session_id,
-                    name: &name,
-                    format: format_label,
-                    content_hash: &hash,
-                    created_at: &created_at,
-                    meta: &meta,
-                    notes: &notes,
-                    map: &result.map,
-                })?;
-                s.insert_shot_file(session_id, id, &name, format_label, &bytes, &stored_options)?;
-                s.dataset(session_id, id)
-            })
-            .await?
-            .ok_or_else(|| ServiceError::Internal("stored dataset vanished".into()))?;
-        let summary = DatasetSummary::new(&row.0, &row.1);
-        self.publish(session_id, "dataset-added", summary.id);
-        Ok(summary)
+        self.store_dataset(StoredDataset {
+            session_id,
+            name,
+            format: format_label,
+            meta,
+            notes,
+            map: result.map,
+            shots: Some((bytes, stored_options)),
+        })
+        .await
     }
 }

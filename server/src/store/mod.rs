@@ -60,6 +60,9 @@ pub struct NewDataset<'a> {
     pub meta: &'a DatasetMeta,
     pub notes: &'a [String],
     pub map: &'a CorrelationMap,
+    /// The shot file the map was estimated from, kept beside it:
+    /// (bytes, estimator options as JSON).
+    pub shots: Option<(&'a [u8], &'a str)>,
 }
 
 /// A stored dataset's descriptive columns (without the map).
@@ -247,7 +250,8 @@ impl Store {
             .optional()?)
     }
 
-    /// Writes a dataset in one transaction and returns its id.
+    /// Writes a dataset (and the shot file it came from, if any) in one
+    /// transaction and returns its id.
     ///
     /// # Errors
     /// Database failure; nothing is written then.
@@ -285,6 +289,13 @@ impl Store {
             ],
         )?;
         let id = tx.last_insert_rowid();
+        if let Some((bytes, options)) = d.shots {
+            tx.execute(
+                "INSERT INTO shot_files (session_id, dataset_id, name, format, bytes, estimator)
+                 VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+                params![d.session_id, id, d.name, d.format, bytes, options],
+            )?;
+        }
         tx.commit()?;
         Ok(id)
     }
@@ -321,28 +332,6 @@ impl Store {
             )
             .optional()?;
         raw.map(decode_dataset).transpose()
-    }
-
-    /// Keeps an uploaded shot file beside the dataset estimated from it.
-    ///
-    /// # Errors
-    /// Database failure.
-    pub fn insert_shot_file(
-        &self,
-        session_id: i64,
-        dataset_id: i64,
-        name: &str,
-        format: &str,
-        bytes: &[u8],
-        estimator: &str,
-    ) -> StoreResult<i64> {
-        let conn = self.lock();
-        conn.execute(
-            "INSERT INTO shot_files (session_id, dataset_id, name, format, bytes, estimator)
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-            params![session_id, dataset_id, name, format, bytes, estimator],
-        )?;
-        Ok(conn.last_insert_rowid())
     }
 
     /// The kept shot file of a dataset: (format, bytes, upload options).
@@ -667,6 +656,7 @@ mod tests {
                 meta: &meta,
                 notes: &["n".into()],
                 map: &map,
+                shots: None,
             })
             .expect("inserts");
         let (row, back) = store.dataset(s.id, id).expect("reads").expect("exists");
