@@ -604,3 +604,26 @@ async fn site_resolved_shot_correlations_and_coupling_fits() {
     assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY);
     assert_eq!(bad["problems"][0]["line"], 2);
 }
+
+#[tokio::test]
+async fn a_cached_log_never_hides_a_newer_pin() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let log = format!("/api/s/{view}/log");
+    for n in 1..=3 {
+        let pin = serde_json::json!({"author": "Ada", "comment": format!("pin {n}")}).to_string();
+        send_json(
+            &app.router,
+            Method::POST,
+            &format!("/api/s/{edit}/log"),
+            pin,
+        )
+        .await;
+        // Read twice: the second read is served from the cache.
+        for _ in 0..2 {
+            let (status, entries) = send_json(&app.router, Method::GET, &log, "").await;
+            assert_eq!(status, StatusCode::OK);
+            assert_eq!(entries.as_array().map(Vec::len), Some(n), "after pin {n}");
+        }
+    }
+}

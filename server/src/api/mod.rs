@@ -489,12 +489,23 @@ async fn pin(
     Ok((StatusCode::CREATED, Json(json!(entry))).into_response())
 }
 
-async fn get_log(
-    State(service): State<Service>,
-    Path(token): Path<String>,
-) -> ApiResult<Json<Value>> {
+async fn get_log(State(service): State<Service>, Path(token): Path<String>) -> ApiResult<Response> {
     let access = service.access(&token).await?;
-    Ok(Json(json!(service.log(&access).await?)))
+    let body = service.log_json(&access).await?;
+    Ok((
+        [(header::CONTENT_TYPE, "application/json")],
+        axum::body::Body::from(Bytes::from_owner(SharedBody(body))),
+    )
+        .into_response())
+}
+
+/// A cached response body shared between requests without copying.
+struct SharedBody(std::sync::Arc<Vec<u8>>);
+
+impl AsRef<[u8]> for SharedBody {
+    fn as_ref(&self) -> &[u8] {
+        self.0.as_slice()
+    }
 }
 
 /// The log as a downloadable JSON document with the session's provenance.

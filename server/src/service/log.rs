@@ -86,7 +86,60 @@ fn check_text(field: &str, text: &str, max: usize, required: bool) -> ServiceRes
     Ok(text.to_string())
 }
 
+/// The serialised log of each session, extended in place: the log only
+/// grows (entries are never rewritten), so a read fetches just the entries
+/// after the last one already serialised and appends them.
+///
+/// Invariant: the cached body holds exactly the entries with id ≤ its
+/// `last_id`, in id order (SQLite's single writer commits ids in order, so
+/// a reader that sees an id sees every smaller one).
+#[derive(Debug, Default)]
+pub struct LogCache {
+    inner: std::sync::Mutex<std::collections::HashMap<i64, (i64, std::sync::Arc<Vec<u8>>)>>,
+}
+
+impl LogCache {
+    fn lock(
+        &self,
+    ) -> std::sync::MutexGuard<'_, std::collections::HashMap<i64, (i64, std::sync::Arc<Vec<u8>>)>>
+    {
+        self.inner
+            .lock()
+            .unwrap_or_else(std::sync::PoisonError::into_inner)
+    }
+}
+
 impl Service {
+    /// The session's log as JSON bytes (an array, oldest first).
+    ///
+    /// # Errors
+    /// Database failure.
+    pub async fn log_json(&self, access: &Access) -> ServiceResult<std::sync::Arc<Vec<u8>>> {
+        let session_id = access.session.id;
+        let cached = self.log_cache.lock().get(&session_id).cloned();
+        let (last_id, body) = cached.unwrap_or_else(|| (0, std::sync::Arc::new(b"[]".to_vec())));
+        let rows = self.db(move |s| s.log_after(session_id, last_id)).await?;
+        let Some(newest) = rows.last().map(|r| r.id) else {
+            return Ok(body);
+        };
+        let mut extended = Vec::with_capacity(body.len() + rows.len() * 256);
+        extended.extend_from_slice(&body[..body.len() - 1]);
+        for (k, row) in rows.into_iter().enumerate() {
+            if k > 0 || body.len() > 2 {
+                extended.push(b',');
+            }
+            serde_json::to_writer(&mut extended, &LogEntry::from(row))
+                .map_err(|e| ServiceError::Internal(e.to_string()))?;
+        }
+        extended.push(b']');
+        let extended = std::sync::Arc::new(extended);
+        let mut cache = self.log_cache.lock();
+        if cache.get(&session_id).is_none_or(|(id, _)| *id < newest) {
+            cache.insert(session_id, (newest, extended.clone()));
+        }
+        Ok(extended)
+    }
+
     /// Pins an entry to the session's log and tells every open page.
     ///
     /// # Errors

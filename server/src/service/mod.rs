@@ -184,6 +184,7 @@ pub struct Service {
     heavy_load: Arc<AtomicUsize>,
     heavy_limit: usize,
     jobs: Arc<fits::Jobs>,
+    log_cache: Arc<log::LogCache>,
 }
 
 impl Service {
@@ -197,6 +198,7 @@ impl Service {
             heavy_load: Arc::new(AtomicUsize::new(0)),
             heavy_limit: config.heavy_jobs.max(1) + config.heavy_queue,
             jobs: Arc::new(fits::Jobs::default()),
+            log_cache: Arc::new(log::LogCache::default()),
         }
     }
 

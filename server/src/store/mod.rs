@@ -489,18 +489,30 @@ impl Store {
         }))
     }
 
+    /// A session's log entries with id above `after`, oldest first.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn log_after(&self, session_id: i64, after: i64) -> StoreResult<Vec<LogRow>> {
+        self.log_where(session_id, after)
+    }
+
     /// A session's log, oldest first.
     ///
     /// # Errors
     /// Database failure.
     pub fn log(&self, session_id: i64) -> StoreResult<Vec<LogRow>> {
+        self.log_where(session_id, 0)
+    }
+
+    fn log_where(&self, session_id: i64, after: i64) -> StoreResult<Vec<LogRow>> {
         let conn = self.read();
-        let mut stmt = conn.prepare(
+        let mut stmt = conn.prepare_cached(
             "SELECT id, created_at, author, comment, dataset_id, dataset_name, dataset_hash,
                     retracts, fit_json, program_version
-             FROM log_entries WHERE session_id = ?1 ORDER BY id",
+             FROM log_entries WHERE session_id = ?1 AND id > ?2 ORDER BY id",
         )?;
-        let rows = stmt.query_map(params![session_id], |r| {
+        let rows = stmt.query_map(params![session_id, after], |r| {
             Ok(LogRow {
                 id: r.get(0)?,
                 created_at: r.get(1)?,
