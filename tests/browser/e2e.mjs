@@ -148,7 +148,7 @@ function errorsOf(sink) {
   return sink
     .filter((e) => !(e.text.startsWith("console: Failed to load resource") && missingRoutes.some((r) => r.test(e.url))))
     .filter((e) => !expectedFailures.some((f) => f.text.test(e.text) && f.url.test(e.url)))
-    .map((e) => `${e.text} @ ${e.url}`);
+    .map((e) => e.text);
 }
 
 /**

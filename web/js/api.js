@@ -232,8 +232,69 @@ export const THEORY_MODELS = /** @type {const} */ (["lattice_walk", "spin_chain"
  * @property {boolean} [retracted]
  */
 
+/**
+ * Estimator settings for shot records. Unset fields keep the server's defaults.
+ * @typedef {object} ShotOptions
+ * @property {number} [source] source site j of C_ij(t)
+ * @property {string} [bulk] "A:B", the sites averaged over as sources
+ * @property {string} [readout] "p01,p10", the readout flip probabilities
+ * @property {boolean} [readout_from_t0] calibrate the readout from the t = 0 records
+ * @property {boolean} [symmetrise]
+ * @property {boolean} [renormalise]
+ * @property {number} [bootstrap]
+ * @property {number} [seed]
+ */
+
+/**
+ * One time of the site-resolved sum rule Σ_i C_ij(t).
+ * @typedef {object} ShotSumPoint
+ * @property {number} t
+ * @property {number} sum
+ * @property {number | null} err
+ * @property {boolean} departs whether the sum departs from 1 beyond its error
+ * @property {number | null} factor the renormalisation factor used, when one was
+ */
+
+/**
+ * The site-resolved correlations a shot-record dataset was made from.
+ * @typedef {object} ShotView
+ * @property {number} sites
+ * @property {number} source
+ * @property {number[]} times
+ * @property {Array<Array<number | null>>} C times × sites, C_{i,source}(t)
+ * @property {Array<Array<number | null>> | null} err
+ * @property {ShotSumPoint[]} sum_rule
+ * @property {number[]} states_per_time
+ * @property {number[]} shots_per_time
+ * @property {string[]} warnings
+ * @property {Record<string, unknown>} options
+ */
+
+/**
+ * The power-law fit J_ij = J / |i−j|^α of a coupling matrix.
+ * @typedef {object} CouplingFit
+ * @property {number} J
+ * @property {number | null} J_err
+ * @property {number} alpha
+ * @property {number | null} alpha_err
+ * @property {number | null} chi2_dof
+ */
+
+/**
+ * @typedef {object} CouplingAnswer
+ * @property {number} sites
+ * @property {Array<Array<number | null>>} matrix
+ * @property {CouplingFit} fit
+ * @property {string[]} notes
+ */
+
 /** Upload formats the server accepts. */
 export const FORMATS = /** @type {const} */ (["csv", "npy", "npz", "json"]);
+
+/** Shot-record formats the shots route reads. */
+export const SHOT_FORMATS = /** @type {const} */ (["csv", "npz", "h5"]);
+
+/** @typedef {typeof SHOT_FORMATS[number]} ShotFormat */
 
 /** @typedef {typeof FORMATS[number]} UploadFormat */
 
@@ -355,6 +416,49 @@ export class SessionApi {
     return this.request(`/datasets?${query}`, {
       method: "POST",
       headers: { "Content-Type": "application/octet-stream" },
+      body,
+    });
+  }
+
+  /**
+   * Sends a shot-record file unchanged; the server estimates C_ij(t) from it.
+   * @param {string} name dataset name
+   * @param {ShotFormat} format
+   * @param {Blob} body
+   * @param {ShotOptions} options
+   * @returns {Promise<DatasetSummary>}
+   */
+  uploadShots(name, format, body, options) {
+    const query = new URLSearchParams({ name, format });
+    for (const [key, value] of Object.entries(options)) {
+      if (value !== undefined && value !== null && value !== "") query.set(key, String(value));
+    }
+    return this.request(`/shots?${query}`, {
+      method: "POST",
+      headers: { "Content-Type": "application/octet-stream" },
+      body,
+    });
+  }
+
+  /**
+   * @param {string | number} id a dataset made from shot records
+   * @param {number | null} source null: the server's default source
+   * @returns {Promise<ShotView>}
+   */
+  shots(id, source) {
+    const query = source === null ? "" : `?${new URLSearchParams({ source: String(source) })}`;
+    return this.request(`/datasets/${encodeURIComponent(String(id))}/shots${query}`);
+  }
+
+  /**
+   * Fits a coupling matrix (CSV, N × N); stores nothing.
+   * @param {Blob | string} body
+   * @returns {Promise<CouplingAnswer>}
+   */
+  couplings(body) {
+    return this.request("/couplings", {
+      method: "POST",
+      headers: { "Content-Type": "text/csv" },
       body,
     });
   }
@@ -506,6 +610,19 @@ export function guessFormat(fileName) {
   const ext = fileName.slice(dot + 1).toLowerCase();
   if (ext === "csv" || ext === "tsv" || ext === "txt") return "csv";
   if (ext === "npy" || ext === "npz" || ext === "json") return ext;
+  return null;
+}
+
+/**
+ * Guesses a shot-record format from a file name.
+ * @param {string} fileName
+ * @returns {ShotFormat | null}
+ */
+export function guessShotFormat(fileName) {
+  const ext = fileName.slice(fileName.lastIndexOf(".") + 1).toLowerCase();
+  if (ext === "csv" || ext === "txt") return "csv";
+  if (ext === "npz") return "npz";
+  if (ext === "h5" || ext === "hdf5") return "h5";
   return null;
 }
 

@@ -2,14 +2,15 @@
 // session, the dataset list, which dataset is chosen), the large-text
 // setting and the live event stream, and wires the other modules together:
 // api.js for the server, header.js, desk.js, datasets.js, metaform.js,
-// windows.js, views.js, collapse.js, residuals.js, compare.js, fits.js,
-// theory.js and log.js for the page. Live updates arrive as server-sent
+// windows.js, views.js, collapse.js, residuals.js, compare.js, shots.js,
+// couplings.js, fits.js, theory.js and log.js for the page. Live updates arrive as server-sent
 // events; after a dropped stream reconnects, everything is read again.
 
 import { ApiError, SessionApi, tokenFromLocation } from "./api.js";
 import { emit } from "./bus.js";
 import { wireCollapse } from "./collapse.js";
 import { wireCompare } from "./compare.js";
+import { wireCouplings } from "./couplings.js";
 import { byId, h } from "./dom.js";
 import { couplingLabel, renderDatasetList, wireUpload } from "./datasets.js";
 import { wireDesk } from "./desk.js";
@@ -22,6 +23,7 @@ import { formatNumber } from "./format.js";
 import { plottingAvailable, setTextScale } from "./plot.js";
 import { largeText, setLargeText } from "./prefs.js";
 import { wireResiduals } from "./residuals.js";
+import { wireShotUpload, wireSiteView } from "./shots.js";
 import { wireTheory } from "./theory.js";
 import { readViewState, writeViewState } from "./urlstate.js";
 import { VIEW_NAMES, activate, showDataset, showNothing, wireViews } from "./views.js";
@@ -282,6 +284,8 @@ async function main() {
   wireCollapse(api, { z: initial.z, D: initial.D });
   wireResiduals();
   wireCompare(api);
+  wireSiteView(api);
+  wireCouplings(api);
   wireFits(api, app.canEdit);
   wireTheory(api);
   wireLog(api, app.canEdit);
@@ -289,6 +293,9 @@ async function main() {
   if (view !== undefined) activate(view);
   if (app.canEdit) {
     wireUpload(api, (summary) => {
+      void refreshList().then(() => select(String(summary.id)));
+    });
+    wireShotUpload(api, (summary) => {
       void refreshList().then(() => select(String(summary.id)));
     });
     wireMetaForm(api, () => app.selectedId, () => {

@@ -27,11 +27,11 @@ import { getWindows, setWindows } from "./windows.js";
 /** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
 /** @typedef {import("./api.js").FitResult} FitResult */
 /** @typedef {import("./api.js").TheoryResult} TheoryResult */
-/** @typedef {"map" | "slices" | "auto" | "sum" | "collapse" | "residual" | "compare"} ViewName */
+/** @typedef {"map" | "slices" | "auto" | "sum" | "collapse" | "residual" | "compare" | "sites" | "couplings"} ViewName */
 /** @typedef {import("./plot.js").SliceOverlay} SliceOverlay */
 /** @typedef {import("./plot.js").LineOverlay} LineOverlay */
 
-export const VIEW_NAMES = /** @type {const} */ (["map", "slices", "auto", "sum", "collapse", "residual", "compare"]);
+export const VIEW_NAMES = /** @type {const} */ (["map", "slices", "auto", "sum", "collapse", "residual", "compare", "sites", "couplings"]);
 /** The views that "four at once" shows. */
 const GRID_VIEWS = /** @type {const} */ (["map", "slices", "auto", "sum"]);
 /** @typedef {typeof GRID_VIEWS[number]} DataView */
@@ -404,7 +404,8 @@ export function showNothing(message) {
   state.detail = null;
   fillTimeOptions();
   for (const view of VIEW_NAMES) {
-    if (view !== "compare") note(view, message);
+    // The comparison and the coupling fit do not belong to one dataset.
+    if (view !== "compare" && view !== "couplings") note(view, message);
   }
   emit("dataset", null);
 }
@@ -567,6 +568,9 @@ export function wireViews() {
       else if (ev.key === "ArrowLeft") next = (i - 1 + tabs.length) % tabs.length;
       else if (ev.key === "Home") next = 0;
       else if (ev.key === "End") next = tabs.length - 1;
+      // A hidden tab (the site-resolved view of a dataset without shots) is stepped over.
+      const step = ev.key === "ArrowLeft" || ev.key === "End" ? -1 : 1;
+      for (let k = 0; next !== null && tabs[next]?.hidden && k < tabs.length; k += 1) next = (next + step + tabs.length) % tabs.length;
       if (next !== null) {
         ev.preventDefault();
         activate(VIEW_NAMES[next] ?? "map", { focus: true });
