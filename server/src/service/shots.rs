@@ -149,7 +149,9 @@ impl Service {
             let (ingested, result) = correlate(&bytes, format, &options)?;
             let sites = ingested.records.sites();
             // Default to the source the dataset was estimated for.
-            let source = source.or(options.source).unwrap_or(sites.saturating_sub(1) / 2);
+            let source = source
+                .or(options.source)
+                .unwrap_or(sites.saturating_sub(1) / 2);
             if source >= sites {
                 return Err(ServiceError::BadRequest(format!(
                     "parameter `source`: {source} is outside a chain of {sites} sites"
