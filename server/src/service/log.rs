@@ -95,14 +95,14 @@ fn check_text(field: &str, text: &str, max: usize, required: bool) -> ServiceRes
 /// a reader that sees an id sees every smaller one).
 #[derive(Debug, Default)]
 pub struct LogCache {
-    inner: std::sync::Mutex<std::collections::HashMap<i64, (i64, std::sync::Arc<Vec<u8>>)>>,
+    inner: std::sync::Mutex<CachedLogs>,
 }
 
+/// Per session: the id of the last serialised entry and the JSON body.
+type CachedLogs = std::collections::HashMap<i64, (i64, std::sync::Arc<Vec<u8>>)>;
+
 impl LogCache {
-    fn lock(
-        &self,
-    ) -> std::sync::MutexGuard<'_, std::collections::HashMap<i64, (i64, std::sync::Arc<Vec<u8>>)>>
-    {
+    fn lock(&self) -> std::sync::MutexGuard<'_, CachedLogs> {
         self.inner
             .lock()
             .unwrap_or_else(std::sync::PoisonError::into_inner)
