@@ -3,7 +3,7 @@
 use axum::http::{Method, StatusCode};
 use serde_json::Value;
 
-use crate::support::{SMALL_CSV, Server, app, new_session, send, send_json};
+use crate::support::{SMALL_CSV, Server, app, dataset_count, new_session, send, send_json};
 
 #[tokio::test]
 async fn sessions_give_distinct_unguessable_tokens() {
@@ -53,14 +53,7 @@ async fn upload_lists_and_reads_back_a_csv() {
     assert_eq!(summary["content_hash"].as_str().map(str::len), Some(64));
     let id = summary["id"].as_i64().expect("id");
 
-    let (_, list) = send_json(
-        &app.router,
-        Method::GET,
-        &format!("/api/s/{view}/datasets"),
-        "",
-    )
-    .await;
-    assert_eq!(list.as_array().map(Vec::len), Some(1));
+    assert_eq!(dataset_count(&app.router, &view).await, 1);
 
     let (status, detail) = send_json(
         &app.router,
@@ -84,14 +77,7 @@ async fn a_view_link_cannot_write() {
     let uri = format!("/api/s/{view}/datasets?name=a.csv&format=csv");
     let (status, body) = send_json(&app.router, Method::POST, &uri, SMALL_CSV).await;
     assert_eq!(status, StatusCode::FORBIDDEN, "{body}");
-    let (_, list) = send_json(
-        &app.router,
-        Method::GET,
-        &format!("/api/s/{edit}/datasets"),
-        "",
-    )
-    .await;
-    assert_eq!(list.as_array().map(Vec::len), Some(0), "nothing stored");
+    assert_eq!(dataset_count(&app.router, &edit).await, 0, "nothing stored");
 }
 
 #[tokio::test]
@@ -111,14 +97,7 @@ async fn a_bad_csv_is_refused_with_every_line_and_nothing_stored() {
     for line in [3, 4, 5] {
         assert!(lines.contains(&line), "line {line} named in {body}");
     }
-    let (_, list) = send_json(
-        &app.router,
-        Method::GET,
-        &format!("/api/s/{edit}/datasets"),
-        "",
-    )
-    .await;
-    assert_eq!(list.as_array().map(Vec::len), Some(0), "nothing stored");
+    assert_eq!(dataset_count(&app.router, &edit).await, 0, "nothing stored");
 }
 
 #[tokio::test]

@@ -4,7 +4,7 @@
 
 use axum::http::{Method, StatusCode};
 
-use crate::support::{SMALL_CSV, app, new_session, repo_path, send_json};
+use crate::support::{SMALL_CSV, app, dataset_count, new_session, repo_path, send_json};
 
 /// (file, line a problem must name, phrase a reason must contain).
 fn corpus() -> Vec<(String, Option<usize>, Option<String>)> {
@@ -64,14 +64,7 @@ async fn every_bad_file_is_refused_with_its_place_and_nothing_is_stored() {
         }
     }
     assert!(failures.is_empty(), "{}", failures.join("\n"));
-    let (_, list) = send_json(
-        &app.router,
-        Method::GET,
-        &format!("/api/s/{edit}/datasets"),
-        "",
-    )
-    .await;
-    assert_eq!(list.as_array().map(Vec::len), Some(0), "nothing stored");
+    assert_eq!(dataset_count(&app.router, &edit).await, 0, "nothing stored");
     let ok = format!("/api/s/{edit}/datasets?name=good.csv");
     let (status, _) = send_json(&app.router, Method::POST, &ok, SMALL_CSV).await;
     assert_eq!(status, StatusCode::CREATED, "still serving");

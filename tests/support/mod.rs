@@ -73,6 +73,14 @@ pub async fn send_json(
     (status, value)
 }
 
+/// Number of datasets a session holds, read through the API.
+pub async fn dataset_count(router: &Router, token: &str) -> usize {
+    let (status, list) =
+        send_json(router, Method::GET, &format!("/api/s/{token}/datasets"), "").await;
+    assert_eq!(status, StatusCode::OK, "{list}");
+    list.as_array().map_or(0, Vec::len)
+}
+
 /// Creates a session; returns (edit token, view token).
 pub async fn new_session(router: &Router) -> (String, String) {
     let (status, body) = send_json(router, Method::POST, "/api/sessions", "{\"name\":\"t\"}").await;
