@@ -534,6 +534,35 @@ async fn site_resolved_shot_correlations_and_coupling_fits() {
             );
         }
     }
+    // The kept shots re-run with other options give a new dataset; the
+    // first one stays as it was.
+    let again =
+        serde_json::json!({"name": "run, source 1", "options": {"source": 1, "bootstrap": 10}});
+    let (status, _) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{view}/datasets/{id}/shots"),
+        again.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::FORBIDDEN);
+    let (status, second) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/{id}/shots"),
+        again.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::CREATED, "{second}");
+    assert_ne!(second["content_hash"], summary["content_hash"]);
+    let (_, first) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/datasets/{id}"),
+        "",
+    )
+    .await;
+    assert_eq!(first["content_hash"], summary["content_hash"]);
     let (status, _) = send_json(
         &app.router,
         Method::GET,

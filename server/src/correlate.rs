@@ -22,7 +22,8 @@ pub struct CorrelateArgs {
     /// Average over sources A..=B (pairs outside the chain are skipped).
     #[arg(long)]
     pub bulk: Option<String>,
-    /// Global readout confusion probabilities `p01,p10` = p(0|1), p(1|0).
+    /// Readout confusion probabilities `p01,p10` = p(0|1), p(1|0) for every
+    /// site, or one pair per site separated by `;` (site 0 first).
     #[arg(long, conflicts_with = "readout_from_t0")]
     pub readout: Option<String>,
     /// Calibrate the readout per site from the t = 0 shots.

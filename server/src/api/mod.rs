@@ -68,7 +68,10 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
             post(upload_shots).layer(DefaultBodyLimit::max(config.max_upload_bytes)),
         )
         .route("/s/{token}/datasets/{id}", get(get_dataset))
-        .route("/s/{token}/datasets/{id}/shots", get(shot_pairs))
+        .route(
+            "/s/{token}/datasets/{id}/shots",
+            get(shot_pairs).post(reestimate),
+        )
         .route("/s/{token}/couplings", post(couplings))
         .route("/s/{token}/datasets/{id}/meta", put(update_meta))
         .route("/s/{token}/events", get(events))
@@ -382,6 +385,27 @@ async fn shot_pairs(
     let access = service.access(&token).await?;
     let q = from_query(query)?;
     Ok(Json(service.shot_pairs(&access, id, q.source).await?))
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct ReestimateRequest {
+    name: String,
+    #[serde(default)]
+    options: ShotOptions,
+}
+
+async fn reestimate(
+    State(service): State<Service>,
+    Path((token, id)): Path<(String, i64)>,
+    body: Bytes,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let request: ReestimateRequest = parse_json(&body, "re-estimate request")?;
+    let summary = service
+        .reestimate(&access, id, &request.name, request.options)
+        .await?;
+    Ok((StatusCode::CREATED, Json(json!(summary))).into_response())
 }
 
 async fn couplings(

@@ -67,25 +67,21 @@ impl ShotOptions {
                 return Err("`readout` and `readout_from_t0`: give one or the other".into());
             }
             (Some(text), false) => {
-                let (a, b) = text
-                    .split_once(',')
-                    .ok_or_else(|| format!("`readout` `{text}`: expected p01,p10"))?;
-                let parse = |s: &str| -> Result<f64, String> {
-                    let v: f64 = s
-                        .trim()
-                        .parse()
-                        .map_err(|_| format!("`readout` `{text}`: `{s}` is not a number"))?;
-                    if (0.0..0.5).contains(&v) {
-                        Ok(v)
-                    } else {
-                        Err(format!(
-                            "`readout` `{text}`: {v} is not a probability below 1/2"
-                        ))
-                    }
-                };
-                Readout::Global {
-                    p01: parse(a)?,
-                    p10: parse(b)?,
+                // `p01,p10` for every site, or one `p01,p10` pair per site
+                // separated by `;` (site 0 first).
+                let pairs = text
+                    .split(';')
+                    .map(|pair| parse_readout_pair(text, pair))
+                    .collect::<Result<Vec<_>, _>>()?;
+                match pairs.as_slice() {
+                    [(p01, p10)] => Readout::Global {
+                        p01: *p01,
+                        p10: *p10,
+                    },
+                    _ => Readout::PerSite {
+                        p01: pairs.iter().map(|p| p.0).collect(),
+                        p10: pairs.iter().map(|p| p.1).collect(),
+                    },
                 }
             }
             (None, true) => Readout::FromTimeZero { per_site: true },
@@ -101,6 +97,27 @@ impl ShotOptions {
             seed: self.seed.unwrap_or(defaults.seed),
         })
     }
+}
+
+/// One `p01,p10` pair of readout confusion probabilities, each in [0, 1/2).
+fn parse_readout_pair(text: &str, pair: &str) -> Result<(f64, f64), String> {
+    let (a, b) = pair.split_once(',').ok_or_else(|| {
+        format!("`readout` `{text}`: expected p01,p10 (or one pair per site, separated by `;`)")
+    })?;
+    let parse = |s: &str| -> Result<f64, String> {
+        let v: f64 = s
+            .trim()
+            .parse()
+            .map_err(|_| format!("`readout` `{text}`: `{s}` is not a number"))?;
+        if (0.0..0.5).contains(&v) {
+            Ok(v)
+        } else {
+            Err(format!(
+                "`readout` `{text}`: {v} is not a probability below 1/2"
+            ))
+        }
+    };
+    Ok((parse(a)?, parse(b)?))
 }
 
 /// Parses shot bytes and runs the estimator (pure; the caller decides where).
@@ -121,6 +138,15 @@ pub fn correlate(
     Ok((ingested, result))
 }
 
+/// The shot format of a stored dataset's format label.
+fn stored_format(label: &str) -> ShotFormat {
+    match label {
+        "shots-npz" => ShotFormat::Npz,
+        "shots-h5" => ShotFormat::Hdf5,
+        _ => ShotFormat::Csv,
+    }
+}
+
 impl Service {
     /// The site-resolved correlations C_{i,source}(t) of a dataset made from
     /// shots, re-estimated from the kept shot file with its upload options.
@@ -138,11 +164,7 @@ impl Service {
             .db(move |s| s.shot_file(session_id, dataset))
             .await?
             .ok_or(ServiceError::NotFound)?;
-        let format = match format.as_str() {
-            "shots-npz" => ShotFormat::Npz,
-            "shots-h5" => ShotFormat::Hdf5,
-            _ => ShotFormat::Csv,
-        };
+        let format = stored_format(&format);
         let options: ShotOptions = serde_json::from_str(&options)
             .map_err(|e| ServiceError::Internal(format!("stored shot options: {e}")))?;
         self.heavy(move || {
@@ -176,6 +198,29 @@ impl Service {
             }))
         })
         .await
+    }
+
+    /// Re-runs the estimator on a dataset's kept shot file with other
+    /// options; the result is a new dataset (the old one is untouched).
+    ///
+    /// # Errors
+    /// Forbidden for view links; NotFound when the dataset has no shots;
+    /// BadRequest naming the option.
+    pub async fn reestimate(
+        &self,
+        access: &Access,
+        dataset: i64,
+        name: &str,
+        options: ShotOptions,
+    ) -> ServiceResult<DatasetSummary> {
+        access.require_edit()?;
+        let session_id = access.session.id;
+        let (format, bytes, _) = self
+            .db(move |s| s.shot_file(session_id, dataset))
+            .await?
+            .ok_or(ServiceError::NotFound)?;
+        let format = stored_format(&format);
+        self.add_shots(access, name, format, bytes, options).await
     }
 
     /// A measured coupling matrix (CSV) and its effective power law
@@ -262,5 +307,46 @@ impl Service {
             shots: Some((bytes, stored_options)),
         })
         .await
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn readout_options_are_global_or_per_site() {
+        let global = ShotOptions {
+            readout: Some("0.02,0.05".into()),
+            ..ShotOptions::default()
+        };
+        assert!(matches!(
+            global.to_estimate_options().expect("valid").readout,
+            Readout::Global { .. }
+        ));
+        let per_site = ShotOptions {
+            readout: Some("0.01,0.02; 0.03,0.04; 0,0".into()),
+            ..ShotOptions::default()
+        };
+        match per_site.to_estimate_options().expect("valid").readout {
+            Readout::PerSite { p01, p10 } => {
+                assert_eq!(p01.len(), 3);
+                assert!((p10[1] - 0.04).abs() < 1e-15);
+            }
+            other => panic!("{other:?}"),
+        }
+        for bad in ["0.6,0.1", "0.1", "0.1,0.1;x,0"] {
+            let options = ShotOptions {
+                readout: Some(bad.into()),
+                ..ShotOptions::default()
+            };
+            assert!(
+                options
+                    .to_estimate_options()
+                    .unwrap_err()
+                    .contains("readout"),
+                "{bad}"
+            );
+        }
     }
 }
