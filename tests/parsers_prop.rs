@@ -81,7 +81,7 @@ proptest! {
 
     #[test]
     fn random_bytes_never_panic_any_parser(bytes in proptest::collection::vec(any::<u8>(), 0..600)) {
-        for format in [Format::Csv, Format::Json, Format::Npy, Format::Npz] {
+        for format in [Format::Csv, Format::Json, Format::Npy, Format::Npz, Format::Hdf5] {
             check_map_parser(&bytes, format);
         }
         for format in [ShotFormat::Csv, ShotFormat::Npz, ShotFormat::Hdf5] {

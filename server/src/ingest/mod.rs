@@ -47,6 +47,8 @@ pub enum Format {
     Npy,
     Npz,
     Json,
+    /// HDF5 with datasets `C`, `t`, `x` and optional `err` at the root.
+    Hdf5,
 }
 
 impl std::str::FromStr for Format {
@@ -57,8 +59,9 @@ impl std::str::FromStr for Format {
             "npy" => Ok(Self::Npy),
             "npz" => Ok(Self::Npz),
             "json" => Ok(Self::Json),
+            "h5" | "hdf5" | "hdf" => Ok(Self::Hdf5),
             other => Err(format!(
-                "unknown format `{other}` (expected csv, npy, npz or json)"
+                "unknown format `{other}` (expected csv, npy, npz, json or h5)"
             )),
         }
     }
@@ -77,6 +80,7 @@ impl Format {
             Self::Npy => "NPY",
             Self::Npz => "NPZ",
             Self::Json => "JSON",
+            Self::Hdf5 => "HDF5",
         }
     }
 }
@@ -100,6 +104,9 @@ pub fn sniff(bytes: &[u8]) -> Option<Format> {
     }
     if bytes.starts_with(ZIP_MAGIC) {
         return Some(Format::Npz);
+    }
+    if bytes.starts_with(b"\x89HDF\r\n\x1a\n") {
+        return Some(Format::Hdf5);
     }
     let text = bytes.strip_prefix(BOM).unwrap_or(bytes);
     let first = text.iter().find(|b| !b.is_ascii_whitespace())?;
@@ -176,7 +183,9 @@ pub fn parse(
     // wall of UTF-8 or archive problems; one sentence naming the mix-up
     // helps more. Text without a binary magic string sent as NPY or NPZ is
     // left to those parsers, which say the magic string is missing.
-    if let Some(found @ (Format::Npy | Format::Npz)) = sniff(bytes).filter(|&f| f != format) {
+    if let Some(found @ (Format::Npy | Format::Npz | Format::Hdf5)) =
+        sniff(bytes).filter(|&f| f != format)
+    {
         return Err(IngestError {
             problems: vec![Problem {
                 line: None,
@@ -193,6 +202,8 @@ pub fn parse(
         Format::Json => json::parse(bytes)?,
         Format::Npz => npy::parse_npz(bytes)?,
         Format::Npy => npy::parse_npy(bytes, options)?,
+        // The HDF5 reader needs an owned buffer: one copy of the upload.
+        Format::Hdf5 => shots::parse_hdf5_map(bytes.to_vec())?,
     };
     if format != Format::Npy && (options.x.is_some() || options.t.is_some()) {
         ingested.notes.push(format!(

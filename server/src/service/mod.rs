@@ -533,6 +533,7 @@ fn format_label(format: Format) -> &'static str {
         Format::Npy => "npy",
         Format::Npz => "npz",
         Format::Json => "json",
+        Format::Hdf5 => "h5",
     }
 }
 
