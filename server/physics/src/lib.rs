@@ -15,6 +15,8 @@
 pub mod fit;
 pub mod model;
 pub mod numerics;
+#[cfg(test)]
+mod testing;
 pub mod tolerance;
 
 pub use model::correlation_map::{CorrelationMap, MapError, SumRulePoint};

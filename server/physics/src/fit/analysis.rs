@@ -882,14 +882,9 @@ mod tests {
     use super::*;
     use crate::model::lattice_walk::LatticeWalk;
     use crate::numerics::stats::{seeded_rng, standard_normal};
+    use crate::testing::log_times;
     use ndarray::Array2;
     use std::f64::consts::PI;
-
-    fn log_times(t0: f64, t1: f64, count: usize) -> Vec<f64> {
-        (0..count)
-            .map(|k| t0 * (t1 / t0).powf(k as f64 / (count - 1) as f64))
-            .collect()
-    }
 
     /// The lattice walk on `sites` sites with seeded noise of `noise`
     /// (errors attached).

@@ -532,14 +532,13 @@ mod tests {
     use ndarray::Array2;
     use std::f64::consts::PI;
 
-    /// Diffusive profile, closed form: exp(−x²/(4Dt))/(2√(πDt)) (z = 2).
+    /// The shared closed-form profiles at D = 1.
     fn gaussian(x: f64, t: f64) -> f64 {
-        (-x * x / (4.0 * t)).exp() / (2.0 * (PI * t).sqrt())
+        crate::testing::gaussian(x, t, 1.0)
     }
 
-    /// Lévy flight at μ = 1, closed form: (Dt)/(π((Dt)² + x²)) (z = 1).
     fn cauchy(x: f64, t: f64) -> f64 {
-        t / (PI * (t * t + x * x))
+        crate::testing::cauchy(x, t, 1.0)
     }
 
     fn map_of(

@@ -613,6 +613,7 @@ mod tests {
     use super::*;
     use crate::model::lattice_walk::LatticeWalk;
     use crate::numerics::stats::{seeded_rng, standard_normal};
+    use crate::testing::log_times;
     use crate::tolerance::close;
 
     fn noisy_walk_map(
@@ -631,12 +632,6 @@ mod tests {
         let errors = Array2::from_elem(values.dim(), noise);
         let offsets = (0..sites).map(|i| i as i32 - source as i32).collect();
         CorrelationMap::complete(offsets, times.to_vec(), values, Some(errors)).expect("valid map")
-    }
-
-    fn log_times(t0: f64, t1: f64, count: usize) -> Vec<f64> {
-        (0..count)
-            .map(|k| t0 * (t1 / t0).powf(k as f64 / (count - 1) as f64))
-            .collect()
     }
 
     #[test]

@@ -1196,20 +1196,9 @@ pub fn compare_profiles(
 mod tests {
     use super::*;
     use crate::numerics::stats::seeded_rng;
+    use crate::testing::{cauchy, gaussian};
     use crate::tolerance::close;
     use ndarray::Array2;
-
-    /// Gaussian scaling function, closed form (PHYSICS.md, μ = 2):
-    /// exp(−x²/(4Dt))/(2√(πDt)).
-    fn gaussian(x: f64, t: f64, d: f64) -> f64 {
-        (-x * x / (4.0 * d * t)).exp() / (2.0 * (PI * d * t).sqrt())
-    }
-
-    /// Cauchy scaling function, closed form (PHYSICS.md, μ = 1):
-    /// Dt/(π((Dt)² + x²)).
-    fn cauchy(x: f64, t: f64, d: f64) -> f64 {
-        d * t / (PI * ((d * t).powi(2) + x * x))
-    }
 
     /// A complete map of `f` on offsets −x_max..=x_max at `times`, with
     /// seeded noise of `noise` (absolute) plus `relative`·C on every point,

@@ -285,19 +285,10 @@ pub fn local_exponent(map: &CorrelationMap) -> Result<Vec<LocalExponent>, TailEr
 mod tests {
     use super::*;
     use crate::numerics::stats::{seeded_rng, standard_normal};
+    use crate::testing::{cauchy, gaussian, log_times};
     use crate::tolerance::close;
     use ndarray::Array2;
     use std::f64::consts::PI;
-
-    /// Diffusive profile, closed form: exp(−x²/(4Dt))/(2√(πDt)) (z = 2).
-    fn gaussian(x: f64, t: f64, d: f64) -> f64 {
-        (-x * x / (4.0 * d * t)).exp() / (2.0 * (PI * d * t).sqrt())
-    }
-
-    /// Lévy flight at μ = 1, closed form: (Dt)/(π((Dt)² + x²)) (z = 1).
-    fn cauchy(x: f64, t: f64, d: f64) -> f64 {
-        d * t / (PI * ((d * t).powi(2) + x * x))
-    }
 
     fn map_from(
         times: &[f64],
@@ -310,12 +301,6 @@ mod tests {
         });
         let errs = errors.map(|e| values.mapv(e));
         CorrelationMap::complete(x, times.to_vec(), values, errs).expect("valid map")
-    }
-
-    fn log_times(t0: f64, t1: f64, n: usize) -> Vec<f64> {
-        (0..n)
-            .map(|k| t0 * (t1 / t0).powf(k as f64 / (n - 1) as f64))
-            .collect()
     }
 
     #[test]

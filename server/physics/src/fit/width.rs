@@ -280,17 +280,9 @@ pub fn fit_width(map: &CorrelationMap, options: WidthOptions) -> Result<WidthRep
 mod tests {
     use super::*;
     use crate::numerics::stats::{seeded_rng, standard_normal, std_dev};
+    use crate::testing::{cauchy, gaussian};
     use crate::tolerance::close;
     use ndarray::Array2;
-    use std::f64::consts::PI;
-
-    fn gaussian(x: f64, t: f64, d: f64) -> f64 {
-        (-x * x / (4.0 * d * t)).exp() / (2.0 * (PI * d * t).sqrt())
-    }
-
-    fn cauchy(x: f64, t: f64, d: f64) -> f64 {
-        d * t / (PI * ((d * t).powi(2) + x * x))
-    }
 
     fn profile(l: i32, f: impl Fn(f64) -> f64) -> (Vec<i32>, Vec<f64>) {
         let x: Vec<i32> = (-l..=l).collect();
