@@ -290,14 +290,9 @@ async fn upload_dataset(
     let access = service.access(&token).await?;
     let query = from_query(query)?;
     let name = query.name.unwrap_or_default();
-    let format = match &query.format {
-        Some(f) => f
-            .parse::<Format>()
-            .map_err(|e| ServiceError::BadRequest(format!("parameter `format`: {e}")))?,
-        None => Format::from_file_name(&name)
-            .or_else(|| crate::ingest::sniff(&body))
-            .ok_or_else(|| ServiceError::BadRequest("parameter `format`: missing".into()))?,
-    };
+    let format = upload_format(query.format.as_deref(), || {
+        Format::from_file_name(&name).or_else(|| crate::ingest::sniff(&body))
+    })?;
     let options = IngestOptions {
         x: query
             .x
@@ -347,14 +342,9 @@ async fn upload_shots(
     let access = service.access(&token).await?;
     let query = from_query(query)?;
     let name = query.name.unwrap_or_default();
-    let format = match &query.format {
-        Some(f) => f
-            .parse::<ShotFormat>()
-            .map_err(|e| ServiceError::BadRequest(format!("parameter `format`: {e}")))?,
-        None => ShotFormat::from_file_name(&name)
-            .or_else(|| ShotFormat::sniff(&body))
-            .ok_or_else(|| ServiceError::BadRequest("parameter `format`: missing".into()))?,
-    };
+    let format = upload_format(query.format.as_deref(), || {
+        ShotFormat::from_file_name(&name).or_else(|| ShotFormat::sniff(&body))
+    })?;
     let options = ShotOptions {
         source: query.source,
         bulk: query.bulk,
@@ -415,6 +405,22 @@ async fn couplings(
 ) -> ApiResult<Json<Value>> {
     service.access(&token).await?;
     Ok(Json(service.couplings(body.to_vec()).await?))
+}
+
+/// The format of an upload: the `format` parameter when given, else a guess
+/// from the file name or the first bytes.
+fn upload_format<F: std::str::FromStr<Err = String>>(
+    given: Option<&str>,
+    guess: impl FnOnce() -> Option<F>,
+) -> Result<F, ServiceError> {
+    match given {
+        Some(f) => f
+            .parse()
+            .map_err(|e| ServiceError::BadRequest(format!("parameter `format`: {e}"))),
+        None => guess().ok_or_else(|| {
+            ServiceError::BadRequest("parameter `format`: missing and not recognisable".into())
+        }),
+    }
 }
 
 /// `A:B` (inclusive range) or `a,b,c`.
