@@ -425,24 +425,30 @@ impl Service {
             return Ok(false);
         }
         let tokens = self.create_session(DEMO_SESSION_NAME).await?;
-        let access = self.access(&tokens.edit_token).await?;
+        let session_id = self.access(&tokens.edit_token).await?.session.id;
         for item in demo::datasets()? {
-            let summary = self
-                .add_dataset(
-                    &access,
-                    &item.name,
-                    item.format,
-                    item.bytes,
-                    IngestOptions::default(),
-                )
-                .await
-                .map_err(|e| ServiceError::Internal(format!("demo file {}: {e}", item.file)))?;
-            let mut meta = summary.meta.clone();
-            if let Some(m) = item.meta {
-                meta = m;
-            }
+            let (format, file) = (item.format, item.file.clone());
+            let bytes = item.bytes;
+            let parsed = self
+                .heavy(move || {
+                    ingest::parse(&bytes, format, &IngestOptions::default())
+                        .map_err(|e| ServiceError::Internal(format!("demo file {file}: {e}")))
+                })
+                .await?;
+            // The manifest's metadata wins over the file's comment lines;
+            // demo data are synthetic whatever either says.
+            let mut meta = item.meta.unwrap_or(parsed.meta);
             meta.synthetic = true;
-            self.update_meta(&access, summary.id, meta).await?;
+            self.store_dataset(StoredDataset {
+                session_id,
+                name: item.name,
+                format: format_label(format),
+                meta,
+                notes: parsed.notes,
+                map: parsed.map,
+                shots: None,
+            })
+            .await?;
         }
         Ok(true)
     }

@@ -353,18 +353,6 @@ impl Store {
             .optional()?)
     }
 
-    /// Number of shot files a session keeps.
-    ///
-    /// # Errors
-    /// Database failure.
-    pub fn shot_file_count(&self, session_id: i64) -> StoreResult<i64> {
-        Ok(self.read().query_row(
-            "SELECT COUNT(*) FROM shot_files WHERE session_id = ?1",
-            params![session_id],
-            |r| r.get(0),
-        )?)
-    }
-
     /// Replaces a dataset's metadata. Returns `false` if no such dataset.
     ///
     /// # Errors
