@@ -303,7 +303,7 @@ async fn upload_dataset(
         t: query
             .t
             .as_deref()
-            .map(parse_times)
+            .map(|t| crate::ingest::parse_time_spec(t, "parameter `t`"))
             .transpose()
             .map_err(ServiceError::BadRequest)?,
     };
@@ -433,29 +433,6 @@ fn parse_offsets(text: &str) -> Result<Vec<i32>, String> {
             return Err(format!("parameter `x`: range {a}:{b} is empty or too long"));
         }
         return Ok((a..=b).collect());
-    }
-    text.split(',')
-        .map(|p| p.trim().parse().map_err(|_| bad(p)))
-        .collect()
-}
-
-/// `t0,t1,…` or `T0:T1:COUNT` (linear).
-fn parse_times(text: &str) -> Result<Vec<f64>, String> {
-    let bad = |part: &str| format!("parameter `t`: `{part}` is not a number");
-    let parts: Vec<&str> = text.split(':').collect();
-    if let [a, b, n] = parts.as_slice() {
-        let a: f64 = a.trim().parse().map_err(|_| bad(a))?;
-        let b: f64 = b.trim().parse().map_err(|_| bad(b))?;
-        let n: usize = n
-            .trim()
-            .parse()
-            .map_err(|_| format!("parameter `t`: count `{n}` is not a whole number"))?;
-        if !(2..=1_000_000).contains(&n) {
-            return Err("parameter `t`: count must be between 2 and 1000000".into());
-        }
-        return Ok((0..n)
-            .map(|i| a + (b - a) * i as f64 / (n - 1) as f64)
-            .collect());
     }
     text.split(',')
         .map(|p| p.trim().parse().map_err(|_| bad(p)))
@@ -728,9 +705,13 @@ mod tests {
         assert_eq!(parse_offsets("-2:2").expect("range"), vec![-2, -1, 0, 1, 2]);
         assert_eq!(parse_offsets("0, 3").expect("list"), vec![0, 3]);
         assert!(parse_offsets("a:3").unwrap_err().contains("`x`"));
-        let t = parse_times("0:1:3").expect("linspace");
+        let t = crate::ingest::parse_time_spec("0:1:3", "parameter `t`").expect("linspace");
         assert_eq!(t.len(), 3);
         assert!((t[1] - 0.5).abs() < 1e-15);
-        assert!(parse_times("1,x").unwrap_err().contains("`t`"));
+        assert!(
+            crate::ingest::parse_time_spec("1,x", "parameter `t`")
+                .unwrap_err()
+                .contains("`t`")
+        );
     }
 }

@@ -328,6 +328,67 @@ fn blamed_field(message: &str) -> Option<&str> {
 }
 
 /// Helpers shared by the format tests.
+/// Parses a time axis written as `1,2,5`, `T0:T1:COUNT` (linear) or
+/// `T0:T1:COUNT:log`, shared by the command line and the upload of bare
+/// NPY arrays. Times are finite, ≥ 0 and strictly increasing.
+///
+/// # Errors
+/// A sentence starting with `place` (the option or parameter) and the text.
+pub fn parse_time_spec(spec: &str, place: &str) -> Result<Vec<f64>, String> {
+    let bad = |what: &str| format!("{place} `{spec}`: {what}");
+    let number = |s: &str| -> Result<f64, String> {
+        let v: f64 = s
+            .trim()
+            .parse()
+            .map_err(|_| bad(&format!("`{s}` is not a number")))?;
+        if v.is_finite() && v >= 0.0 {
+            Ok(v)
+        } else {
+            Err(bad(&format!("`{s}` is not a finite time ≥ 0")))
+        }
+    };
+    let parts: Vec<&str> = spec.split(':').collect();
+    let times = match parts.as_slice() {
+        [single] => single
+            .split(',')
+            .map(number)
+            .collect::<Result<Vec<_>, _>>()?,
+        [a, b, n] | [a, b, n, _] => {
+            let (a, b) = (number(a)?, number(b)?);
+            let n: usize = n
+                .trim()
+                .parse()
+                .map_err(|_| bad(&format!("count `{n}` is not a whole number")))?;
+            if !(2..=100_000).contains(&n) {
+                return Err(bad("count must be between 2 and 100000"));
+            }
+            let log = match parts.get(3) {
+                None => false,
+                Some(&"log") => true,
+                Some(other) => return Err(bad(&format!("unknown spacing `{other}` (use `log`)"))),
+            };
+            if log && a <= 0.0 {
+                return Err(bad("log spacing needs T0 > 0"));
+            }
+            (0..n)
+                .map(|i| {
+                    let f = i as f64 / (n - 1) as f64;
+                    if log {
+                        a * (b / a).powf(f)
+                    } else {
+                        a + (b - a) * f
+                    }
+                })
+                .collect()
+        }
+        _ => return Err(bad("expected `1,2,5`, `T0:T1:COUNT` or `T0:T1:COUNT:log`")),
+    };
+    if times.windows(2).any(|w| w[1] <= w[0]) {
+        return Err(bad("times must strictly increase"));
+    }
+    Ok(times)
+}
+
 #[cfg(test)]
 mod testing {
     use spreadscope_physics::CorrelationMap;
