@@ -9,4 +9,6 @@ pub mod lattice_walk_fit;
 pub mod profile;
 pub mod short_time_check;
 pub mod tail;
+pub mod verdict;
 pub mod width;
+pub mod windows;
