@@ -8,6 +8,26 @@ use std::path::PathBuf;
 use clap::Args;
 use serde_json::json;
 use spreadscope_physics::fit::analysis::{AnalysisOptions, analyze};
+use spreadscope_physics::fit::verdict::DConvention;
+use spreadscope_physics::fit::windows::DEFAULT_BOOTSTRAP;
+
+/// The D convention on the command line.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum DConventionArg {
+    /// s(t) = (D t)^{1/z} (default).
+    Rate,
+    /// s(t) = D t^{1/z}.
+    Prefactor,
+}
+
+impl From<DConventionArg> for DConvention {
+    fn from(a: DConventionArg) -> Self {
+        match a {
+            DConventionArg::Rate => Self::Rate,
+            DConventionArg::Prefactor => Self::Prefactor,
+        }
+    }
+}
 
 use crate::cli::CliError;
 use crate::ingest::{self, Format, IngestOptions};
@@ -33,8 +53,19 @@ pub struct AnalyzeArgs {
     #[arg(long, requires = "sites")]
     pub source: Option<usize>,
     /// Bootstrap resamples of the collapse and profile fits (0: none).
-    #[arg(long, default_value_t = 200)]
+    #[arg(long, default_value_t = DEFAULT_BOOTSTRAP)]
     pub bootstrap: usize,
+    /// Nominal coupling exponent α (for the crossover remark and the
+    /// reference line 2α − 1).
+    #[arg(long)]
+    pub alpha: Option<f64>,
+    /// Unit of the time axis, used in D's units.
+    #[arg(long, default_value = "time unit")]
+    pub time_unit: String,
+    /// How D is defined: `rate` for s(t) = (D t)^{1/z}, `prefactor` for
+    /// s(t) = D t^{1/z}.
+    #[arg(long, value_enum, default_value_t = DConventionArg::Rate)]
+    pub d_convention: DConventionArg,
     /// Seed of every random number.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
@@ -80,6 +111,9 @@ pub fn run(args: &AnalyzeArgs) -> Result<(), CliError> {
         source: args.source,
         bootstrap: args.bootstrap,
         seed: args.seed,
+        alpha: args.alpha,
+        time_unit: args.time_unit.clone(),
+        d_convention: args.d_convention.into(),
     };
     let report = analyze(&ingested.map, &options)
         .map_err(|e| CliError::Input(format!("{}: {e}", args.file.display())))?;

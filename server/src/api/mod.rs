@@ -446,6 +446,12 @@ async fn get_dataset(
     let access = service.access(&token).await?;
     let (summary, map) = service.dataset(&access, id).await?;
     let mut body = json!(summary);
+    let rule = crate::service::fits::default_windows(
+        &map,
+        &summary.meta,
+        crate::service::fits::Windows::default(),
+        &crate::service::fits::FitOptions::default(),
+    );
     let grid = |a: &ndarray::Array2<f64>| -> Vec<Vec<Option<f64>>> {
         a.outer_iter()
             .zip(map.present().outer_iter())
@@ -467,6 +473,13 @@ async fn get_dataset(
             .into_iter()
             .map(|(t, c, e)| json!({"t": t, "C": c, "err": e}))
             .collect::<Vec<_>>()),
+        "default_windows": {
+            "t_min": rule.t_min,
+            "t_max": rule.t_max,
+            "x_max": rule.x_max,
+            "rule": rule.rule,
+            "bootstrap": spreadscope_physics::fit::windows::DEFAULT_BOOTSTRAP,
+        },
     });
     if let (Some(obj), Value::Object(more)) = (body.as_object_mut(), extra) {
         obj.extend(more);

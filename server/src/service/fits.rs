@@ -12,7 +12,9 @@ use std::sync::{Arc, Mutex};
 use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value, json};
 use spreadscope_physics::CorrelationMap;
-use spreadscope_physics::fit::analysis::{AnalysisOptions, analyze};
+use spreadscope_physics::fit::analysis::{AnalysisError, AnalysisOptions, analyze_with_progress};
+use spreadscope_physics::fit::verdict::{DConvention, EstimatorLine, Standing, Verdict};
+use spreadscope_physics::fit::windows::{self as window_rule, Bounds, DEFAULT_BOOTSTRAP};
 use spreadscope_physics::fit::collapse::{CollapseOptions, CollapseQuality};
 use spreadscope_physics::fit::lattice_walk_fit::{LatticeWalkFitOptions, fit_lattice_walk};
 use spreadscope_physics::fit::profile::{
@@ -121,6 +123,10 @@ pub struct FitOptions {
     /// Short-time check: order of the polynomial in t (2 or 4).
     #[serde(default)]
     pub order: Option<usize>,
+    /// How D is written: `rate`, s(t) = (D t)^{1/z} (default), or
+    /// `prefactor`, s(t) = D t^{1/z}.
+    #[serde(default)]
+    pub d_convention: DConvention,
 }
 
 fn half() -> f64 {
@@ -133,7 +139,7 @@ fn z_high() -> f64 {
     3.0
 }
 fn resamples() -> usize {
-    50
+    DEFAULT_BOOTSTRAP
 }
 
 impl Default for FitOptions {
@@ -148,6 +154,7 @@ impl Default for FitOptions {
             sites: None,
             source: None,
             order: None,
+            d_convention: DConvention::Rate,
         }
     }
 }
@@ -166,12 +173,22 @@ pub struct FitRequest {
     pub job: Option<String>,
 }
 
-/// One fitted parameter.
+/// One fitted parameter: `err` is the statistical 1σ, `err_sys` the
+/// window systematic (spread over the window family), `interval` the
+/// bootstrap 16th–84th percentiles, `bias` bootstrap mean − estimate.
 #[derive(Debug, Clone, Serialize)]
 pub struct Parameter {
     pub value: f64,
     pub err: Option<f64>,
     pub err_bootstrap: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub err_sys: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub interval: Option<[f64; 2]>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub bias: Option<f64>,
+    /// Held fixed by the model (e.g. μ = 2 of the Gaussian profile).
+    pub fixed: bool,
 }
 
 fn param(value: f64, err: f64) -> Parameter {
@@ -179,6 +196,20 @@ fn param(value: f64, err: f64) -> Parameter {
         value,
         err: err.is_finite().then_some(err),
         err_bootstrap: None,
+        err_sys: None,
+        interval: None,
+        bias: None,
+        fixed: false,
+    }
+}
+
+/// A parameter from an estimator line's measurement.
+fn measured(m: &spreadscope_physics::fit::verdict::Measured) -> Parameter {
+    Parameter {
+        err_sys: m.err_sys,
+        interval: m.interval,
+        bias: m.bias,
+        ..param(m.value, m.err_stat)
     }
 }
 
@@ -189,7 +220,15 @@ pub struct FitResult {
     pub dataset: i64,
     pub dataset_name: String,
     pub dataset_hash: String,
+    /// The windows actually used (never empty: the rule fills what the
+    /// request left open).
     pub windows: Windows,
+    /// How the windows were chosen, in words.
+    pub window_rule: String,
+    /// Bootstrap resamples used.
+    pub bootstrap: usize,
+    /// How D is defined in this result.
+    pub d_convention: &'static str,
     pub seed: Option<u64>,
     pub parameters: BTreeMap<String, Parameter>,
     pub quality: Map<String, Value>,
@@ -204,6 +243,9 @@ pub struct FitResult {
     /// fitted model on the window's grid) and `residual` `{x, t, values,
     /// err}` (data − model).
     pub overlay: Option<Value>,
+    /// The headline (only for `analysis`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub verdict: Option<Verdict>,
 }
 
 /// Cancellation flags of running jobs, by (session, job id).
@@ -261,6 +303,9 @@ type Computed = (
     Option<u64>,
 );
 
+/// Reports progress of a job; `false` when it was cancelled.
+type JobProgress<'a> = &'a (dyn Fn(f64) -> bool + Sync);
+
 /// Everything a fit needs about its dataset.
 struct FitInput {
     /// The map cut to the request's windows.
@@ -296,7 +341,8 @@ fn compute(
     method: FitMethod,
     input: &FitInput,
     options: &FitOptions,
-    cancel: &AtomicBool,
+    progress: JobProgress<'_>,
+    verdict_out: &mut Option<Verdict>,
 ) -> ServiceResult<Computed> {
     let map = &input.map;
     let window = TimeWindow::default();
@@ -358,7 +404,7 @@ fn compute(
         }
         FitMethod::Collapse => {
             let quality_fn = CollapseQuality::new(map).map_err(bad)?;
-            if cancel.load(Ordering::SeqCst) {
+            if !progress(0.0) {
                 return Err(ServiceError::Cancelled);
             }
             let report = quality_fn
@@ -445,7 +491,7 @@ fn compute(
             let source = options
                 .source
                 .or(input.meta.source_site.map(|j| j as usize));
-            let report = analyze(
+            let report = analyze_with_progress(
                 &input.full,
                 &AnalysisOptions {
                     t_min: input.windows.t_min,
@@ -455,36 +501,56 @@ fn compute(
                     source: source.filter(|_| sites.is_some()),
                     bootstrap: options.bootstrap,
                     seed: options.seed,
+                    alpha: input.meta.alpha,
+                    time_unit: if input.meta.time_unit.is_empty() {
+                        "time unit".to_string()
+                    } else {
+                        input.meta.time_unit.clone()
+                    },
+                    d_convention: options.d_convention,
                 },
+                &|fraction, _| progress(fraction),
             )
-            .map_err(bad)?;
+            .map_err(|e| match e {
+                AnalysisError::Cancelled => ServiceError::Cancelled,
+                other => bad(other),
+            })?;
+            let chosen: Option<&EstimatorLine> = report
+                .estimators
+                .iter()
+                .find(|l| l.name == report.verdict.estimator);
+            if let Some(z) = chosen.and_then(|l| l.z.as_ref()) {
+                parameters.insert("z".into(), measured(z));
+            }
+            let v = &report.verdict;
+            if let (Some(d), Some(e)) = (v.d, v.d_err_stat) {
+                let mut p = param(d, e);
+                p.err_sys = v.d_err_sys;
+                parameters.insert("D".into(), p);
+            }
+            if let Some(mu) = report
+                .estimators
+                .iter()
+                .find(|l| l.name == "stable profile" && l.standing == Standing::Applies)
+                .and_then(|l| l.z.as_ref())
+            {
+                parameters.insert("mu".into(), measured(mu));
+            }
             if let Some(c) = &report.collapse {
-                let v = to_value(c)?;
-                if let (Some(z), Some(e)) = (v["z"].as_f64(), v["z_err"].as_f64()) {
-                    parameters.insert("z".into(), param(z, e));
-                }
-                quality.insert("collapse_quality".into(), v["quality"].clone());
+                quality.insert("collapse_quality".into(), json!(c.quality));
             }
             if let Some(p) = &report.profile {
-                let v = to_value(p)?;
-                if let (Some(d), Some(e)) = (v["D"].as_f64(), v["D_err"].as_f64()) {
-                    parameters.insert("D".into(), param(d, e));
-                }
-                if let (Some(m), Some(e)) = (v["mu"].as_f64(), v["mu_err"].as_f64()) {
-                    parameters.insert("mu".into(), param(m, e));
-                }
-                quality.insert("chi2_dof".into(), v["chi2_dof"].clone());
+                quality.insert("chi2_dof".into(), json!(p.preferred.chi2_dof));
             }
+            quality.insert("class".into(), json!(v.class.name()));
+            quality.insert("estimator".into(), json!(v.estimator));
             for w in &report.warnings {
-                warnings.push(
-                    to_value(w)?["message"]
-                        .as_str()
-                        .map_or_else(|| format!("{w:?}"), str::to_string),
-                );
+                warnings.push(w.message.clone());
             }
             let text = report.render_text();
             let mut value = to_value(&report)?;
             value["text"] = json!(text);
+            *verdict_out = Some(report.verdict.clone());
             Ok((
                 parameters,
                 quality,
@@ -495,6 +561,81 @@ fn compute(
             ))
         }
     }
+}
+
+/// The windows of the one window rule for `map` with the request's bounds
+/// and the chain from the options or the metadata.
+#[must_use]
+pub fn default_windows(
+    map: &CorrelationMap,
+    meta: &crate::dataset::DatasetMeta,
+    windows: Windows,
+    options: &FitOptions,
+) -> window_rule::WindowChoice {
+    let chain = window_rule::chain_of(
+        map,
+        options.sites.or(meta.chain_length.map(|n| n as usize)),
+        options.source.or(meta.source_site.map(|j| j as usize)),
+    );
+    window_rule::choose(
+        map,
+        Bounds {
+            t_min: windows.t_min,
+            t_max: windows.t_max,
+            x_max: windows.x_max,
+        },
+        chain,
+    )
+}
+
+/// Adds the window error to every parameter of a scaling-regime fit: the
+/// root-mean-square deviation of the same estimator, without bootstrap,
+/// over the window family (`windows` module of the physics crate).
+fn window_errors(
+    parameters: &mut BTreeMap<String, Parameter>,
+    method: FitMethod,
+    input: &FitInput,
+    family: &[Windows],
+    options: &FitOptions,
+    progress: JobProgress<'_>,
+) -> ServiceResult<()> {
+    if family.is_empty() {
+        return Ok(());
+    }
+    let quick = FitOptions {
+        bootstrap: 0,
+        ..options.clone()
+    };
+    let mut values: BTreeMap<String, Vec<f64>> = BTreeMap::new();
+    for w in family {
+        if !progress(0.9) {
+            return Err(ServiceError::Cancelled);
+        }
+        let Ok(map) = w.apply(&input.full) else {
+            continue;
+        };
+        let member = FitInput {
+            map,
+            full: input.full.clone(),
+            windows: *w,
+            meta: input.meta.clone(),
+        };
+        let mut none = None;
+        if let Ok(c) = compute(method, &member, &quick, progress, &mut none) {
+            for (name, p) in c.0 {
+                values.entry(name).or_default().push(p.value);
+            }
+        }
+    }
+    for (name, p) in parameters.iter_mut() {
+        if p.fixed {
+            continue;
+        }
+        if let Some(v) = values.get(name) {
+            p.err_sys = window_rule::window_error(p.value, v);
+        }
+    }
+    Ok(())
 }
 
 /// The fitted curves of a result, on the grid of its window.
@@ -614,6 +755,10 @@ fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed
     parameters.insert("D".into(), d);
     let mut mu = param(chosen.mu, chosen.mu_err);
     mu.err_bootstrap = chosen.mu_err_bootstrap;
+    if chosen.model == ProfileModel::Gaussian {
+        mu.fixed = true;
+        mu.err = None;
+    }
     parameters.insert("mu".into(), mu.clone());
     parameters.insert("z".into(), mu);
     quality.insert("chi2_dof".into(), json!(chosen.chi2_dof));
@@ -650,13 +795,49 @@ impl Service {
         request: FitRequest,
     ) -> ServiceResult<FitResult> {
         let (summary, full) = self.dataset(access, dataset).await?;
+        request.windows.check()?;
+        let options = request.options.clone().unwrap_or_default();
+        let method = request.method;
+        // The one window rule fills what the request leaves open (the
+        // estimators of the scaling regime); the lattice-walk fit and the
+        // short-time check see the request's bounds only, and the analysis
+        // applies the rule itself.
+        let choice = default_windows(&full, &summary.meta, request.windows, &options);
+        let used = match method {
+            FitMethod::Tail | FitMethod::Width | FitMethod::Collapse | FitMethod::Profile => {
+                Windows {
+                    t_min: Some(choice.t_min),
+                    t_max: Some(choice.t_max),
+                    x_max: choice.x_max,
+                }
+            }
+            FitMethod::LatticeWalk | FitMethod::ShortTime | FitMethod::Analysis => request.windows,
+        };
+        let family: Vec<Windows> = match method {
+            FitMethod::Tail | FitMethod::Width | FitMethod::Collapse | FitMethod::Profile => {
+                window_rule::family(&full, &choice)
+                    .into_iter()
+                    .map(|m| Windows {
+                        t_min: m.bounds.t_min,
+                        t_max: m.bounds.t_max,
+                        x_max: m.bounds.x_max,
+                    })
+                    .collect()
+            }
+            _ => Vec::new(),
+        };
+        let rule = match method {
+            FitMethod::LatticeWalk | FitMethod::ShortTime => {
+                "the request's bounds (this fit models every time)".to_string()
+            }
+            _ => choice.rule.clone(),
+        };
         let input = FitInput {
-            map: request.windows.apply(&full)?,
+            map: used.apply(&full)?,
             full,
-            windows: request.windows,
+            windows: used,
             meta: summary.meta.clone(),
         };
-        let options = request.options.clone().unwrap_or_default();
         let session_id = access.session.id;
         let job = request.job.clone();
         let cancel = match &job {
@@ -673,13 +854,31 @@ impl Service {
         if let Some(id) = &job {
             self.publish_progress(session_id, id, 0.0);
         }
-        let method = request.method;
         let flag = cancel.clone();
+        let service = self.clone();
+        let job_id = job.clone();
+        let walk_times = input.map.times().to_vec();
+        let (bootstrap, d_convention) = (options.bootstrap, options.d_convention.words());
         let outcome = self
             .heavy(move || {
-                let computed = compute(method, &input, &options, &flag)?;
+                // Progress events at most every 1 % of the way, and the
+                // cancel flag read at every step.
+                let last = Mutex::new(-1.0_f64);
+                let progress = |fraction: f64| {
+                    if let Some(id) = &job_id {
+                        let mut l = last.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
+                        if fraction - *l >= 0.01 {
+                            *l = fraction;
+                            service.publish_progress(session_id, id, fraction.min(0.99));
+                        }
+                    }
+                    !flag.load(Ordering::SeqCst)
+                };
+                let mut verdict = None;
+                let mut computed = compute(method, &input, &options, &progress, &mut verdict)?;
+                window_errors(&mut computed.0, method, &input, &family, &options, &progress)?;
                 let overlay = overlay(method, &input, &computed.0, &computed.4);
-                Ok((computed, overlay))
+                Ok((computed, overlay, verdict))
             })
             .await;
         if let Some(id) = &job {
@@ -689,13 +888,42 @@ impl Service {
         if cancel.load(Ordering::SeqCst) {
             return Err(ServiceError::Cancelled);
         }
-        let ((parameters, quality, termination, warnings, report, seed), overlay) = outcome?;
+        let ((parameters, quality, termination, warnings, report, seed), overlay, verdict) =
+            outcome?;
+        let (windows, rule) = match method {
+            FitMethod::Analysis => (
+                Windows {
+                    t_min: report["windows"]["t_window"][0].as_f64(),
+                    t_max: report["windows"]["t_window"][1].as_f64(),
+                    x_max: request.windows.x_max,
+                },
+                report["windows"]["rule"]
+                    .as_str()
+                    .unwrap_or_default()
+                    .to_string(),
+            ),
+            FitMethod::LatticeWalk | FitMethod::ShortTime => {
+                let t = &walk_times;
+                (
+                    Windows {
+                        t_min: Some(t[0]),
+                        t_max: Some(t[t.len() - 1]),
+                        x_max: used.x_max,
+                    },
+                    rule,
+                )
+            }
+            _ => (used, rule),
+        };
         Ok(FitResult {
             method,
             dataset,
             dataset_name: summary.name,
             dataset_hash: summary.content_hash,
-            windows: request.windows,
+            windows,
+            window_rule: rule,
+            bootstrap,
+            d_convention,
             seed,
             parameters,
             quality,
@@ -705,6 +933,7 @@ impl Service {
             conventions: CONVENTIONS,
             report,
             overlay,
+            verdict,
         })
     }
 

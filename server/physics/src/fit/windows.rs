@@ -36,7 +36,7 @@
 //!    empty, every time t > 0, marked as such.
 //!
 //! The user's `t_min`, `t_max` and `x_max` replace the rule's ends one by
-//! one (a given end is never moved).
+//! one (a given end is never moved, and is returned as given).
 //!
 //! # Window family (systematic error)
 //! The neighbouring windows are: t_min × f and t_min / f, t_max / f (an
@@ -254,8 +254,8 @@ pub fn choose(map: &CorrelationMap, bounds: Bounds, chain: Option<Chain>) -> Win
             _ => (map.times()[0], map.times()[map.n_times() - 1]),
         };
         WindowChoice {
-            t_min: a,
-            t_max: b,
+            t_min: bounds.t_min.unwrap_or(a),
+            t_max: bounds.t_max.unwrap_or(b),
             x_max: bounds.x_max,
             usable: usable.first().zip(usable.last()).map(|(&a, &b)| [a, b]),
             end,
@@ -283,8 +283,8 @@ pub fn choose(map: &CorrelationMap, bounds: Bounds, chain: Option<Chain>) -> Win
         (ta, "whole usable range (its late half holds too few times)")
     };
     WindowChoice {
-        t_min,
-        t_max: tb,
+        t_min: bounds.t_min.unwrap_or(t_min),
+        t_max: bounds.t_max.unwrap_or(tb),
         x_max: bounds.x_max,
         usable: Some([ta, tb]),
         end,
@@ -462,7 +462,7 @@ mod tests {
             },
             None,
         );
-        assert!(given.t_min >= 2.0 && given.t_min < 2.5, "{given:?}");
+        assert!((given.t_min - 2.0).abs() < 1e-12, "{given:?}");
         assert!((given.t_max - tb).abs() < 1e-12);
         // The family moves each end and narrows x.
         let members = family(&map, &choice);
