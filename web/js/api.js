@@ -69,6 +69,7 @@
  * @property {Array<Array<number | null>> | null} err
  * @property {SumRulePoint[]} sum_rule
  * @property {AutocorrelationPoint[] | null} autocorrelation
+ * @property {DefaultWindows} [default_windows] the one window rule's windows
  */
 
 /** @typedef {DatasetSummary & DatasetDetailExtra} DatasetDetail */
@@ -107,6 +108,36 @@ export const FIT_METHODS = /** @type {const} */ (["tail", "width", "collapse", "
  * @property {number} value
  * @property {number | null} err one-sigma error from the fit's covariance (or the method's own rule)
  * @property {number | null} [err_bootstrap] one-sigma error from the bootstrap, when it ran
+ * @property {number | null} [err_sys] window error: spread over neighbouring windows
+ * @property {boolean} [fixed] held fixed by the model
+ */
+
+/**
+ * The headline of a map (analysis only).
+ * @typedef {object} Verdict
+ * @property {string} class ballistic, levy, diffusive, subdiffusive or undetermined
+ * @property {number | null} z
+ * @property {number | null} z_err_stat
+ * @property {number | null} z_err_sys
+ * @property {number | null} D
+ * @property {number | null} D_err_stat
+ * @property {number | null} D_err_sys
+ * @property {string} D_units
+ * @property {string} D_convention
+ * @property {string} estimator
+ * @property {string} why
+ * @property {string[]} reasons
+ * @property {string} headline
+ */
+
+/**
+ * The windows of the one window rule for a dataset.
+ * @typedef {object} DefaultWindows
+ * @property {number} t_min
+ * @property {number} t_max
+ * @property {number | null} x_max
+ * @property {string} rule
+ * @property {number} bootstrap default bootstrap resamples
  */
 
 /**
@@ -128,6 +159,9 @@ export const FIT_METHODS = /** @type {const} */ (["tail", "width", "collapse", "
  * @property {string} program_version
  * @property {Record<string, unknown>} report
  * @property {Record<string, unknown> | null} [overlay]
+ * @property {Verdict} [verdict] analysis only
+ * @property {string} [window_rule] how the windows were chosen
+ * @property {number} [bootstrap] resamples used
  */
 
 /**

@@ -27,7 +27,8 @@ import { wireShotUpload, wireSiteView } from "./shots.js";
 import { wireTheory } from "./theory.js";
 import { readViewState, writeViewState } from "./urlstate.js";
 import { VIEW_NAMES, activate, showDataset, showNothing, wireViews } from "./views.js";
-import { initWindows, setWindowTimeUnit, wireWindows } from "./windows.js";
+import { initWindows, setDefaultWindows, setWindowTimeUnit, wireWindows } from "./windows.js";
+import { showVerdictFor } from "./verdict.js";
 
 /** @typedef {import("./api.js").DatasetSummary} DatasetSummary */
 /** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
@@ -164,6 +165,8 @@ async function select(id) {
     if (seq !== app.loadSeq) return;
     renderFacts(detail);
     setWindowTimeUnit(detail.meta.time_unit);
+    setDefaultWindows(detail.default_windows ?? null);
+    showVerdictFor(api, detail);
     if (app.canEdit) {
       byId("meta-dataset-name", HTMLElement).textContent = `of “${detail.name}”`;
       fillMetaForm(detail.meta, { force: changed });

@@ -181,10 +181,24 @@ function parameterTable(fit) {
         ...(boot !== null && boot !== undefined
           ? [h("span", { class: "param-boot", title: "one-sigma error from resampling" }, [`bootstrap ± ${errText(boot)}`])]
           : []),
+        ...windowErrorText(p, fit),
       ]),
     ]);
   });
   return h("table", { class: "param-table" }, [h("thead", {}, [head]), h("tbody", {}, rows)]);
+}
+
+/**
+ * The window error and the bootstrap count under a parameter (stat ± window).
+ * @param {import("./api.js").FitParameter} p
+ * @param {FitResult} fit
+ * @returns {HTMLElement[]}
+ */
+function windowErrorText(p, fit) {
+  if (p.fixed) return [h("span", { class: "param-boot" }, ["fixed by the model"])];
+  if (p.err_sys === null || p.err_sys === undefined) return [];
+  const n = fit.bootstrap ?? 0;
+  return [h("span", { class: "param-boot", title: fit.window_rule ?? "" }, [`(stat, ${n} resamples) ± ${errText(p.err_sys)} (window)`])];
 }
 
 /**

@@ -1379,3 +1379,44 @@ export function drawCouplingDecay(el, input) {
   layout.legend = { ...(/** @type {PlotObject} */ (layout.legend)), x: 1, xanchor: "right", y: 1, yanchor: "top" };
   return Plotly.react(el, [data, line], layout, config());
 }
+
+// ---- i10-verdict: the local exponent z_eff(t) ----
+
+/**
+ * z_eff(t) = 1/(−d ln C(0,t)/d ln t) with its error band, the scan of z
+ * against the window start (tail fit and collapse, window end fixed), and
+ * horizontal reference lines (z = 1, z = 2, z = 2α − 1 when α is known).
+ * Every number drawn is the server's.
+ * @param {HTMLElement} el
+ * @param {{z_eff: Array<{t: number, z: number, err: number | null}>, scan: Array<{t_start: number, tail: number[] | null, collapse: number[] | null}>, references: Array<[string, number]>, unit: string}} input
+ * @returns {Promise<HTMLElement>}
+ */
+export function drawLocalExponent(el, input) {
+  const t = input.z_eff.map((p) => p.t);
+  const z = input.z_eff.map((p) => p.z);
+  const hi = input.z_eff.map((p) => p.z + (p.err ?? 0));
+  const lo = input.z_eff.map((p) => p.z - (p.err ?? 0));
+  /** @type {PlotObject[]} */
+  const traces = [
+    { type: "scatter", mode: "lines", x: t, y: hi, line: { width: 0 }, hoverinfo: "skip", showlegend: false },
+    { type: "scatter", mode: "lines", x: t, y: lo, line: { width: 0 }, fill: "tonexty", fillcolor: "rgba(31, 63, 143, 0.15)", hoverinfo: "skip", name: "z_eff ± 1σ" },
+    { type: "scatter", mode: "lines+markers", name: "local z_eff(t)", x: t, y: z, line: { color: DATA_INK, width: 2 }, marker: { size: 6 } },
+  ];
+  for (const [key, name, color] of /** @type {Array<["tail" | "collapse", string, string]>} */ ([["tail", "tail fit from window start", FIT_INK], ["collapse", "collapse from window start", ACCENT]])) {
+    const pts = input.scan.filter((p) => p[key] !== null);
+    traces.push({
+      type: "scatter",
+      mode: "markers",
+      name,
+      x: pts.map((p) => p.t_start),
+      y: pts.map((p) => (p[key] ?? [0])[0]),
+      error_y: { type: "data", array: pts.map((p) => (p[key] ?? [0, 0])[1]), visible: true, color },
+      marker: { color, size: 8, symbol: key === "tail" ? "square" : "diamond" },
+    });
+  }
+  const layout = baseLayout(el, timeTitle(input.unit), "z", { xType: "log" });
+  layout.showlegend = true;
+  layout.shapes = input.references.map(([, v]) => ({ type: "line", xref: "paper", x0: 0, x1: 1, y0: v, y1: v, line: { color: THEORY_INK, width: 1.5, dash: "dot" } }));
+  layout.annotations = input.references.map(([label, v]) => ({ xref: "paper", x: 1, xanchor: "right", y: v, yanchor: "bottom", text: plain(label), showarrow: false, font: { color: THEORY_INK, size: fs(12) } }));
+  return Plotly.react(el, traces, layout, config());
+}

@@ -19,6 +19,8 @@ import { writeViewState } from "./urlstate.js";
 
 /** @type {Windows} */
 let current = { t_min: null, t_max: null, x_max: null };
+/** @type {import("./api.js").DefaultWindows | null} the rule's windows of the chosen dataset */
+let defaults = null;
 /** Time unit of the chosen dataset, for the chips. */
 let timeUnit = "";
 
@@ -129,11 +131,29 @@ export function setWindowTimeUnit(unit) {
   renderBar();
 }
 
+/**
+ * Remembers the server's default windows (one window rule) for the chosen
+ * dataset; the bar shows them while no window is set, and every fit sent
+ * without windows uses them on the server.
+ * @param {import("./api.js").DefaultWindows | null} dw
+ */
+export function setDefaultWindows(dw) {
+  defaults = dw;
+  renderBar();
+}
+
+/** @returns {string} the default windows in words, for the quiet chip */
+function defaultText() {
+  if (defaults === null) return "all t > 0, all x";
+  const texts = windowTexts({ t_min: defaults.t_min, t_max: defaults.t_max, x_max: defaults.x_max }, timeUnit).map((t) => t.text);
+  return `default: ${texts.join(", ")} (${defaults.bootstrap} resamples)`;
+}
+
 function renderBar() {
   const list = byId("window-chips", HTMLUListElement);
   const texts = windowTexts(current, timeUnit);
   if (texts.length === 0) {
-    list.replaceChildren(h("li", { class: "chip chip-quiet", "data-testid": "window-chip" }, ["all t > 0, all x"]));
+    list.replaceChildren(h("li", { class: "chip chip-quiet", "data-testid": "window-chip", title: defaults?.rule ?? "" }, [defaultText()]));
   } else {
     list.replaceChildren(
       ...texts.map(({ key, text }) => {

@@ -2,6 +2,7 @@
 //! goodness of fit and why it stopped. Depends on `model` and `numerics`.
 
 pub mod analysis;
+pub mod calibration;
 pub mod collapse;
 pub mod couplings_fit;
 pub mod diagnosis;
