@@ -341,21 +341,32 @@ impl Service {
     }
 }
 
+/// The verdict's headline (analysis only), then every parameter as
+/// "value ± stat (stat) ± window (window)" when the window error is known.
 fn parameters_text(fit: &Value) -> String {
-    fit["parameters"]
+    let params = fit["parameters"]
         .as_object()
         .map(|params| {
             params
                 .iter()
-                .map(|(name, p)| match (p["value"].as_f64(), p["err"].as_f64()) {
-                    (Some(v), Some(e)) => format!("{name} = {v:.4} ± {e:.4}"),
-                    (Some(v), None) => format!("{name} = {v:.4}"),
-                    _ => name.clone(),
+                .map(|(name, p)| {
+                    match (p["value"].as_f64(), p["err"].as_f64(), p["err_sys"].as_f64()) {
+                        (Some(v), Some(e), Some(w)) => {
+                            format!("{name} = {v:.4} ± {e:.4} (stat) ± {w:.4} (window)")
+                        }
+                        (Some(v), Some(e), None) => format!("{name} = {v:.4} ± {e:.4}"),
+                        (Some(v), None, _) => format!("{name} = {v:.4}"),
+                        _ => name.clone(),
+                    }
                 })
                 .collect::<Vec<_>>()
                 .join(", ")
         })
-        .unwrap_or_default()
+        .unwrap_or_default();
+    match fit["verdict"]["headline"].as_str() {
+        Some(h) => format!("verdict {h}; {params}"),
+        None => params,
+    }
 }
 
 const STYLE: &str = "body{font:17px/1.45 system-ui,sans-serif;margin:2rem auto;max-width:1200px;\
