@@ -425,10 +425,17 @@ async fn analysis_returns_the_verdict_and_the_windows_of_the_one_rule_and_pins_t
     )
     .await;
     assert_eq!(status, StatusCode::OK, "{all}");
-    assert_eq!(all["verdict"]["class"], "diffusive", "{}", all["report"]["text"]);
+    assert_eq!(
+        all["verdict"]["class"], "diffusive",
+        "{}",
+        all["report"]["text"]
+    );
     assert_eq!(all["windows"]["t_min"], defaults["t_min"]);
     assert_eq!(all["windows"]["t_max"], defaults["t_max"]);
-    assert!(all["parameters"]["z"]["err_sys"].as_f64().is_some(), "{all}");
+    assert!(
+        all["parameters"]["z"]["err_sys"].as_f64().is_some(),
+        "{all}"
+    );
     let (status, collapse) = send_json(
         &app.router,
         Method::POST,

@@ -121,7 +121,10 @@ fn main() {
     for (sites, times, runs) in [(101, 60, 5), (401, 400, 1)] {
         let m = stable_map(sites, times);
         time(
-            &format!("analyze {sites} x {times}, default ({} resamples)", defaults.bootstrap),
+            &format!(
+                "analyze {sites} x {times}, default ({} resamples)",
+                defaults.bootstrap
+            ),
             runs,
             || analyze(&m, &defaults).expect("analysis runs"),
         );

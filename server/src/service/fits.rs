@@ -13,8 +13,6 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value, json};
 use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::fit::analysis::{AnalysisError, AnalysisOptions, analyze_with_progress};
-use spreadscope_physics::fit::verdict::{DConvention, EstimatorLine, Standing, Verdict};
-use spreadscope_physics::fit::windows::{self as window_rule, Bounds, DEFAULT_BOOTSTRAP};
 use spreadscope_physics::fit::collapse::{CollapseOptions, CollapseQuality};
 use spreadscope_physics::fit::lattice_walk_fit::{LatticeWalkFitOptions, fit_lattice_walk};
 use spreadscope_physics::fit::profile::{
@@ -22,7 +20,9 @@ use spreadscope_physics::fit::profile::{
 };
 use spreadscope_physics::fit::short_time_check::{ShortTimeOptions, check_short_time};
 use spreadscope_physics::fit::tail::{TimeWindow, fit_tail, local_exponent};
+use spreadscope_physics::fit::verdict::{DConvention, EstimatorLine, Standing, Verdict};
 use spreadscope_physics::fit::width::{WidthOptions, fit_width};
+use spreadscope_physics::fit::windows::{self as window_rule, Bounds, DEFAULT_BOOTSTRAP};
 use spreadscope_physics::model::lattice_walk::LatticeWalk;
 use spreadscope_physics::model::stable::StableDensity;
 
@@ -866,7 +866,9 @@ impl Service {
                 let last = Mutex::new(-1.0_f64);
                 let progress = |fraction: f64| {
                     if let Some(id) = &job_id {
-                        let mut l = last.lock().unwrap_or_else(std::sync::PoisonError::into_inner);
+                        let mut l = last
+                            .lock()
+                            .unwrap_or_else(std::sync::PoisonError::into_inner);
                         if fraction - *l >= 0.01 {
                             *l = fraction;
                             service.publish_progress(session_id, id, fraction.min(0.99));
@@ -876,7 +878,14 @@ impl Service {
                 };
                 let mut verdict = None;
                 let mut computed = compute(method, &input, &options, &progress, &mut verdict)?;
-                window_errors(&mut computed.0, method, &input, &family, &options, &progress)?;
+                window_errors(
+                    &mut computed.0,
+                    method,
+                    &input,
+                    &family,
+                    &options,
+                    &progress,
+                )?;
                 let overlay = overlay(method, &input, &computed.0, &computed.4);
                 Ok((computed, overlay, verdict))
             })

@@ -350,7 +350,11 @@ fn parameters_text(fit: &Value) -> String {
             params
                 .iter()
                 .map(|(name, p)| {
-                    match (p["value"].as_f64(), p["err"].as_f64(), p["err_sys"].as_f64()) {
+                    match (
+                        p["value"].as_f64(),
+                        p["err"].as_f64(),
+                        p["err_sys"].as_f64(),
+                    ) {
                         (Some(v), Some(e), Some(w)) => {
                             format!("{name} = {v:.4} ± {e:.4} (stat) ± {w:.4} (window)")
                         }

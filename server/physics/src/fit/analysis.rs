@@ -62,7 +62,6 @@ use crate::fit::tail::{
 };
 use crate::fit::verdict::{
     DConvention, EstimatorLine, Evidence, Measured, POOR_FIT_ABOVE, Standing, Verdict, decide,
-
 };
 use crate::fit::width::{WidthOptions, WidthReport, fit_width};
 use crate::fit::windows::{
@@ -499,7 +498,8 @@ fn walk_d(walk: &LatticeWalkFitReport) -> Option<Measured> {
     };
     let d = d_of(walk.gamma0, walk.alpha)?;
     let h = (walk.alpha_err * 0.5).max(1e-6);
-    let dd_da = (d_of(walk.gamma0, walk.alpha + h)? - d_of(walk.gamma0, walk.alpha - h)?) / (2.0 * h);
+    let dd_da =
+        (d_of(walk.gamma0, walk.alpha + h)? - d_of(walk.gamma0, walk.alpha - h)?) / (2.0 * h);
     let err = (dd_da * walk.alpha_err).hypot(d / walk.gamma0 * walk.gamma0_err);
     Some(Measured::new(d, err, Some(walk.chi2_dof)))
 }
@@ -896,7 +896,11 @@ fn picture(
         .collect();
     let usable = candidates.len().saturating_sub(windows::MIN_TIMES - 1);
     let stride = usable.div_ceil(SCAN_STARTS).max(1);
-    let starts: Vec<f64> = candidates[..usable].iter().copied().step_by(stride).collect();
+    let starts: Vec<f64> = candidates[..usable]
+        .iter()
+        .copied()
+        .step_by(stride)
+        .collect();
     let scan = starts
         .par_iter()
         .map(|&t0| {
@@ -994,11 +998,9 @@ fn weight_outside(map: &CorrelationMap, choice: &WindowChoice) -> Option<(f64, f
 
 fn lines(inputs: &LineInputs<'_>) -> Vec<EstimatorLine> {
     let choice = inputs.choice;
-    let fam = |f: fn(&Quick) -> Option<f64>| -> Vec<f64> {
-        inputs.family.iter().filter_map(f).collect()
-    };
-    let outside = weight_outside(inputs.map, choice)
-        .filter(|(w, _)| *w > SUM_RULE_TOLERANCE);
+    let fam =
+        |f: fn(&Quick) -> Option<f64>| -> Vec<f64> { inputs.family.iter().filter_map(f).collect() };
+    let outside = weight_outside(inputs.map, choice).filter(|(w, _)| *w > SUM_RULE_TOLERANCE);
     let mut out = Vec::new();
 
     // Second moment: applies with a front and the whole weight inside.
@@ -1206,7 +1208,10 @@ fn lines(inputs: &LineInputs<'_>) -> Vec<EstimatorLine> {
                 detail,
             });
         }
-        None => out.push(failed("autocorrelation tail", "no usable C(0,t) in the window")),
+        None => out.push(failed(
+            "autocorrelation tail",
+            "no usable C(0,t) in the window",
+        )),
     }
 
     // Width: does not apply when weight leaves the window.
@@ -1479,8 +1484,8 @@ impl AnalysisReport {
         let _ = writeln!(out);
         let _ = writeln!(
             out,
-            "{:<22} {:<48} {:<40} {}",
-            "estimator", "z", "D (sites^z per time unit)", "standing"
+            "{:<22} {:<48} {:<40} standing",
+            "estimator", "z", "D (sites^z per time unit)"
         );
         let _ = writeln!(out, "{}", "-".repeat(124));
         for l in &self.estimators {
@@ -1604,12 +1609,12 @@ fn num(v: f64) -> String {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::model::lattice_walk::LatticeWalk;
-    use crate::numerics::stats::{seeded_rng, standard_normal};
     use crate::fit::verdict::TransportClass;
     use crate::model::couplings::Couplings;
     use crate::model::free_fermion::FreeFermionChain;
+    use crate::model::lattice_walk::LatticeWalk;
     use crate::model::stable::StableDensity;
+    use crate::numerics::stats::{seeded_rng, standard_normal};
     use crate::testing::{gaussian, log_times};
     use ndarray::Array2;
     use std::f64::consts::PI;
@@ -1719,7 +1724,13 @@ mod tests {
 
     /// A map from exact values with seeded Gaussian noise of `noise`
     /// (errors attached).
-    fn noisy(x: Vec<i32>, times: Vec<f64>, exact: &Array2<f64>, noise: f64, seed: u64) -> CorrelationMap {
+    fn noisy(
+        x: Vec<i32>,
+        times: Vec<f64>,
+        exact: &Array2<f64>,
+        noise: f64,
+        seed: u64,
+    ) -> CorrelationMap {
         let mut rng = seeded_rng(seed);
         let values = exact.mapv(|c| c + noise * standard_normal(&mut rng));
         let errors = Array2::from_elem(values.dim(), noise);
@@ -1737,7 +1748,11 @@ mod tests {
         let v = &report.verdict;
         assert_eq!(v.class, class, "{}", report.render_text());
         let got = v.z.expect("z");
-        assert!((got - z).abs() < tol, "z = {got}, expected {z}: {}", report.render_text());
+        assert!(
+            (got - z).abs() < tol,
+            "z = {got}, expected {z}: {}",
+            report.render_text()
+        );
     }
 
     #[test]
@@ -1827,7 +1842,11 @@ mod tests {
             gaussian(f64::from(x[j]), times[i], 0.5)
         });
         let report = analyze(&noisy(x, times, &exact, 1e-4, 3), &quick_options()).expect("runs");
-        for l in report.estimators.iter().filter(|l| l.standing == Standing::Applies) {
+        for l in report
+            .estimators
+            .iter()
+            .filter(|l| l.standing == Standing::Applies)
+        {
             assert!(l.z.and_then(|z| z.err_sys).is_some(), "{l:?}");
         }
         let pic = &report.local_exponent_picture;
@@ -1836,7 +1855,10 @@ mod tests {
         assert!((last.z - 2.0).abs() < 0.2, "{last:?}");
         let text = report.render_text();
         assert!(text.starts_with("verdict   diffusive"), "{text}");
-        assert!(text.contains("(stat) ±") && text.contains("(window)"), "{text}");
+        assert!(
+            text.contains("(stat) ±") && text.contains("(window)"),
+            "{text}"
+        );
     }
 
     #[test]

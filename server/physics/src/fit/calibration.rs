@@ -155,13 +155,32 @@ impl Case {
 pub fn cases() -> Vec<Case> {
     let stable = |mu| Truth::Stable { mu, t: [1.0, 20.0] };
     vec![
-        Case { name: "stable μ = 0.8", truth: stable(0.8), noise: Noise::White(1e-4) },
-        Case { name: "stable μ = 1.3", truth: stable(1.3), noise: Noise::White(1e-4) },
-        Case { name: "stable μ = 1.7", truth: stable(1.7), noise: Noise::White(1e-4) },
-        Case { name: "Gaussian", truth: stable(2.0), noise: Noise::White(1e-4) },
+        Case {
+            name: "stable μ = 0.8",
+            truth: stable(0.8),
+            noise: Noise::White(1e-4),
+        },
+        Case {
+            name: "stable μ = 1.3",
+            truth: stable(1.3),
+            noise: Noise::White(1e-4),
+        },
+        Case {
+            name: "stable μ = 1.7",
+            truth: stable(1.7),
+            noise: Noise::White(1e-4),
+        },
+        Case {
+            name: "Gaussian",
+            truth: stable(2.0),
+            noise: Noise::White(1e-4),
+        },
         Case {
             name: "lattice walk α = 0.9, 61 sites",
-            truth: Truth::FiniteWalk { alpha: 0.9, sites: 61 },
+            truth: Truth::FiniteWalk {
+                alpha: 0.9,
+                sites: 61,
+            },
             noise: Noise::White(1e-4),
         },
         Case {
@@ -172,7 +191,10 @@ pub fn cases() -> Vec<Case> {
         Case {
             name: "μ = 1.3, noise correlated in x",
             truth: stable(1.3),
-            noise: Noise::CorrelatedInX { sigma: 1e-4, rho: 0.6 },
+            noise: Noise::CorrelatedInX {
+                sigma: 1e-4,
+                rho: 0.6,
+            },
         },
         Case {
             name: "μ = 1.3, low signal late",
@@ -181,7 +203,10 @@ pub fn cases() -> Vec<Case> {
         },
         Case {
             name: "μ = 1.3, small scales",
-            truth: Truth::Stable { mu: 1.3, t: [0.3, 5.0] },
+            truth: Truth::Stable {
+                mu: 1.3,
+                t: [0.3, 5.0],
+            },
             noise: Noise::White(1e-4),
         },
     ]
@@ -287,7 +312,10 @@ mod tests {
         // Truth from the models (z = μ of the stable density; physics notes,
         // "Transport classes"); 68 % coverage of a one-sigma interval is
         // common practice, no source. Ten copies each, no bootstrap.
-        for case in cases().iter().filter(|c| c.name == "stable μ = 1.3" || c.name == "Gaussian") {
+        for case in cases()
+            .iter()
+            .filter(|c| c.name == "stable μ = 1.3" || c.name == "Gaussian")
+        {
             let summary = run(case, 10, 0);
             let v = summary
                 .estimators

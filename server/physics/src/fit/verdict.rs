@@ -373,7 +373,10 @@ pub fn decide(
     let (class, class_reason) = if !(sigma.is_finite() && sigma <= MAX_CLASS_ERROR) {
         (
             TransportClass::Undetermined,
-            format!("the error of z ({}) is too large to name a class", short(sigma)),
+            format!(
+                "the error of z ({}) is too large to name a class",
+                short(sigma)
+            ),
         )
     } else if evidence.front {
         if (z.value - 1.0).abs() <= tol {
@@ -399,7 +402,10 @@ pub fn decide(
     } else if (z.value - 2.0).abs() <= tol {
         (
             TransportClass::Diffusive,
-            format!("z within {} of 2 and no front: diffusive (Gaussian)", short(tol)),
+            format!(
+                "z within {} of 2 and no front: diffusive (Gaussian)",
+                short(tol)
+            ),
         )
     } else if z.value > 2.0 {
         (
@@ -440,9 +446,7 @@ pub fn decide(
     let (dv, ds, dw) = match d {
         Some(m) => {
             let (v, s) = convention.convert(m.value, m.err_stat, z.value);
-            let w = m
-                .err_sys
-                .map(|e| convention.convert(m.value, e, z.value).1);
+            let w = m.err_sys.map(|e| convention.convert(m.value, e, z.value).1);
             (Some(v), Some(s), w)
         }
         None => (None, None, None),

@@ -169,7 +169,11 @@ pub struct FamilyMember {
 /// Infers the chain when `sites` is not given (rule 1), or completes the
 /// given one.
 #[must_use]
-pub fn chain_of(map: &CorrelationMap, sites: Option<usize>, source: Option<usize>) -> Option<Chain> {
+pub fn chain_of(
+    map: &CorrelationMap,
+    sites: Option<usize>,
+    source: Option<usize>,
+) -> Option<Chain> {
     let x = map.offsets();
     let (first, last) = (x[0], x[x.len() - 1]);
     let contiguous = i64::from(last) - i64::from(first) + 1 == x.len() as i64;
@@ -204,7 +208,10 @@ pub fn chain_of(map: &CorrelationMap, sites: Option<usize>, source: Option<usize
 /// The scaling window of `map` by the rule of the module documentation.
 #[must_use]
 pub fn choose(map: &CorrelationMap, bounds: Bounds, chain: Option<Chain>) -> WindowChoice {
-    let edges = chain.map_or_else(|| Edges::of_map(map), |c| Edges::of_chain(c.sites, c.source));
+    let edges = chain.map_or_else(
+        || Edges::of_map(map),
+        |c| Edges::of_chain(c.sites, c.source),
+    );
     let plateau = chain.map(|c| 1.0 / c.sites as f64);
     let noise_words = if map.errors().is_some() {
         "the peak of C > 3 δC"
@@ -426,7 +433,11 @@ mod tests {
         assert_eq!((chain.sites, chain.source), (61, 30));
         assert_eq!(chain.basis, ChainBasis::InferredFromMap);
         let choice = choose(&map, Bounds::default(), Some(chain));
-        let ti = map.times().iter().position(|&t| t == choice.t_max).expect("a time");
+        let ti = map
+            .times()
+            .iter()
+            .position(|&t| (t - choice.t_max).abs() < 1e-12)
+            .expect("a time");
         let c0 = map.values()[(ti, 30)];
         assert!(c0 >= SATURATION_FACTOR / 61.0, "{choice:?}");
         let edges = Edges::of_chain(61, 30);
