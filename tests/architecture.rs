@@ -205,10 +205,9 @@ fn the_checker_sees_grouped_imports_inline_paths_and_code_after_tests() {
     "#;
     let found = violations_in("planted.rs", planted, &["crate::fit", "serde_json"], true);
     assert!(
-        found
-            .iter()
-            .any(|v| v.contains("crate::fit::collapse::CollapseQuality")),
-        "{found:?}"
+        found.iter().any(|v| v.starts_with("planted.rs:2 ")
+            && v.contains("crate::fit::collapse::CollapseQuality")),
+        "the grouped import, named by its line: {found:?}"
     );
     assert!(
         found
