@@ -87,10 +87,44 @@ function axis(title, type, lengthPx) {
     ticklen: 6,
     automargin: true,
     exponentformat: "power",
-    // On long log axes label only 2 and 5 between decades (the full 2…9 row
-    // is unreadable from the back of a room); on short ones whole decades.
-    ...(type === "log" ? { dtick: lengthPx >= 250 ? "D2" : 1 } : {}),
+    ...(type === "log" ? logTicks(lengthPx) : {}),
   };
+}
+
+/**
+ * Tick marks of a log axis, each labelled with its full value ("0.2", "2",
+ * "20", "2×10⁵") so that 0.2 and 2 never look alike. Long axes get 1, 2 and 5
+ * in every decade, short ones 1 and 3, so that even an axis spanning less
+ * than a decade carries two labels. Plotly shows the ticks inside the range.
+ * @param {number} lengthPx room the axis has on screen, in CSS pixels
+ * @returns {PlotObject}
+ */
+function logTicks(lengthPx) {
+  const steps = lengthPx >= 250 ? [1, 2, 5] : [1, 3];
+  /** @type {number[]} */
+  const tickvals = [];
+  /** @type {string[]} */
+  const ticktext = [];
+  for (let exp = -12; exp <= 12; exp += 1) {
+    for (const m of steps) {
+      tickvals.push(m * 10 ** exp);
+      ticktext.push(logTickText(m, exp));
+    }
+  }
+  return { tickmode: "array", tickvals, ticktext };
+}
+
+const SUPERSCRIPT = /** @type {Record<string, string>} */ ({ "-": "⁻", 0: "⁰", 1: "¹", 2: "²", 3: "³", 4: "⁴", 5: "⁵", 6: "⁶", 7: "⁷", 8: "⁸", 9: "⁹" });
+
+/**
+ * @param {number} mantissa 1 … 9
+ * @param {number} exp power of ten
+ * @returns {string} "0.02", "500" or "2×10⁻⁵"
+ */
+function logTickText(mantissa, exp) {
+  if (exp >= -3 && exp <= 4) return String(Number((mantissa * 10 ** exp).toPrecision(1)));
+  const power = `10${String(exp).replace(/./g, (c) => SUPERSCRIPT[c] ?? c)}`;
+  return mantissa === 1 ? power : `${mantissa}×${power}`;
 }
 
 /**
