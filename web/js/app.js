@@ -29,6 +29,7 @@ import { wireTheory } from "./theory.js";
 import { readViewState, writeViewState } from "./urlstate.js";
 import { VIEW_NAMES, activate, activeView, showDataset, showNothing, wireViews } from "./views.js";
 import { initWindows, setWindowTimeUnit, wireWindows } from "./windows.js";
+import { noteWords } from "./words.js";
 
 /** @typedef {import("./api.js").DatasetSummary} DatasetSummary */
 /** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
@@ -139,7 +140,7 @@ function renderFacts(d) {
     ["Content hash", d.content_hash.slice(0, 16) + "…", d.content_hash],
     ["Added", d.created_at],
   ]);
-  byId("dataset-notes", HTMLElement).replaceChildren(...d.notes.map((n) => h("li", {}, [n])));
+  byId("dataset-notes", HTMLElement).replaceChildren(...d.notes.map((n) => h("li", {}, [noteWords(n)])));
   const userNotes = byId("dataset-user-notes", HTMLElement);
   userNotes.textContent = d.meta.notes ? `Notes: ${d.meta.notes}` : "";
   userNotes.hidden = !d.meta.notes;

@@ -9,6 +9,8 @@
 // y = t^{1/z} C in the collapse; the reference line z = min(2α − 1, 2);
 // the power law J / r^α through the coupling fit, from the server's J and α).
 
+import { FIT_METHODS } from "./api.js";
+import { methodName } from "./fitformat.js";
 import { formatNumber } from "./format.js";
 import {
   categoryColours,
@@ -414,10 +416,31 @@ export function drawSlices(el, input) {
     }
     return trace;
   });
-  for (const overlay of input.overlays ?? []) {
+  const overlays = input.overlays ?? [];
+  if (overlays.length > 0) {
+    // The data step back (thinner, lighter) so that the model curves, drawn
+    // after them in a dark colour on a white halo, stay visible on top.
+    for (const trace of traces) {
+      trace.opacity = 0.7;
+      /** @type {PlotObject} */ (trace.line).width = 1.5;
+      /** @type {PlotObject} */ (trace.marker).size = 6;
+    }
+  }
+  for (const overlay of overlays) {
+    const ink = overlay.kind === "theory" ? THEORY_INK : FIT_INK;
     overlay.curves.forEach((curve, k) => {
       const i = series.findIndex((s) => Math.abs(s.t - curve.t) <= 1e-9 * Math.max(1, Math.abs(s.t)));
       if (i < 0) return;
+      traces.push({
+        type: "scatter",
+        mode: "lines",
+        showlegend: false,
+        hoverinfo: "skip",
+        x: overlay.x,
+        y: curve.C,
+        line: { color: "rgba(255,255,255,0.9)", width: 6 },
+        connectgaps: false,
+      });
       traces.push({
         type: "scatter",
         mode: "lines",
@@ -426,7 +449,7 @@ export function drawSlices(el, input) {
         showlegend: k === 0,
         x: overlay.x,
         y: curve.C,
-        line: { color: colours[i] ?? INK, width: 2.5, dash: overlay.kind === "theory" ? "dash" : "dot" },
+        line: { color: ink, width: 3, dash: overlay.kind === "theory" ? "dash" : "solid" },
         connectgaps: false,
         hovertemplate: `${plain(overlay.label)}<br>t = ${formatNumber(curve.t)}${unit}<br>x = %{x}<br>C = %{y:.4~g}<extra></extra>`,
       });
@@ -1143,8 +1166,16 @@ export function drawDifferenceMap(el, input) {
  * @returns {Promise<unknown>}
  */
 export function drawComparison(elZ, elD, input) {
-  const methods = [...new Set([...input.z, ...input.D].map((p) => p.method))].sort();
-  const colours = categoryColours(methods.length);
+  // Each estimator keeps its colour and marker whatever else is pinned or
+  // retracted: its place in the fixed list of estimators picks them.
+  const known = /** @type {readonly string[]} */ (FIT_METHODS);
+  const seen = [...new Set([...input.z, ...input.D].map((p) => p.method))];
+  const extra = seen.filter((m) => !known.includes(m)).sort();
+  const order = [...known, ...extra];
+  const methods = order.filter((m) => seen.includes(m));
+  const palette = categoryColours(order.length);
+  const colours = methods.map((m) => palette[order.indexOf(m)]);
+  const symbols = methods.map((m) => SYMBOLS[order.indexOf(m) % SYMBOLS.length]);
   /**
    * @param {ComparisonPoint[]} points
    * @param {string} what
@@ -1157,13 +1188,14 @@ export function drawComparison(elZ, elD, input) {
         return {
           type: "scatter",
           mode: "markers",
-          name: m,
+          name: methodName(m),
+          legendgroup: m,
           x: mine.map((p) => p.alpha),
           y: mine.map((p) => p.value),
           text: mine.map((p) => p.label),
           error_y: { type: "data", array: mine.map((p) => p.err ?? 0), visible: true, color: colours[k], thickness: 2, width: 6 },
-          marker: { color: colours[k], size: 13, symbol: SYMBOLS[k % SYMBOLS.length], line: { color: "#ffffff", width: 1 } },
-          hovertemplate: `%{text}<br>α = %{x}<br>${what} = %{y:.4~g}<extra>${plain(m)}</extra>`,
+          marker: { color: colours[k], size: 13, symbol: symbols[k], line: { color: "#ffffff", width: 1 } },
+          hovertemplate: `%{text}<br>α = %{x}<br>${what} = %{y:.4~g}<extra>${plain(methodName(m))}</extra>`,
         };
       })
       .filter((t) => t.x.length > 0);

@@ -8,7 +8,7 @@
 
 import { on } from "./bus.js";
 import { byId, h } from "./dom.js";
-import { methodName, withError } from "./fitformat.js";
+import { dUnit, methodName, parameterValue } from "./fitformat.js";
 import { setTextScale } from "./plot.js";
 import { VIEW_NAMES, activate, activeView, gridShown, redrawAll, setGrid } from "./views.js";
 import { windowTexts } from "./windows.js";
@@ -56,39 +56,6 @@ export function setBannerSource(source) {
 /** Redraws the banner, for a source whose answer changed. */
 export function refreshBanner() {
   renderBanner();
-}
-
-/**
- * The unit of D for a dataset: sites^z per time unit, with the dataset's
- * unit when it is set.
- * @param {DatasetDetail} d
- * @returns {string}
- */
-export function dUnit(d) {
-  const unit = d.meta.time_unit ? d.meta.time_unit.trim() : "";
-  if (unit === "") return "sites^z per time unit";
-  const needsBrackets = /[\s/*·]/.test(unit);
-  return `sites^z / ${needsBrackets ? `(${unit})` : unit}`;
-}
-
-/**
- * A parameter of a fit for the banner: fixed ones say so, others carry the
- * statistical error and, when the server sends one, the window systematic.
- * @param {import("./api.js").FitParameter} p
- * @returns {string}
- */
-export function parameterValue(p) {
-  const extra = /** @type {{fixed?: boolean, err_sys?: number | null}} */ (p);
-  if (extra.fixed) return `${withError(p.value, null)} (fixed)`;
-  const stat = p.err ?? p.err_bootstrap ?? null;
-  const text = withError(p.value, stat);
-  const sys = extra.err_sys ?? null;
-  if (stat !== null && sys !== null && Number.isFinite(sys) && sys > 0) {
-    // Both errors rounded at the place of the statistical one.
-    const digits = Math.max(0, 1 - Math.floor(Math.log10(stat)));
-    return `${text} (stat) ±\u00a0${digits <= 8 ? sys.toFixed(digits) : String(sys)} (window)`;
-  }
-  return text;
 }
 
 /**

@@ -9,6 +9,7 @@
 
 import { emit, on } from "./bus.js";
 import { byId, h } from "./dom.js";
+import { methodName, parameterValue } from "./fitformat.js";
 import { formatNumber } from "./format.js";
 import {
   clearPlot,
@@ -562,7 +563,7 @@ function takeFitOverlay(fit) {
   const tail = overlay ? /** @type {any} */ (overlay).tail : null;
   if (tail && Array.isArray(tail.t) && Array.isArray(tail.C)) {
     state.fitOverlay.tail = {
-      label: z ? `${fit.method} fit: z = ${formatNumber(z.value)}` : `${fit.method} fit`,
+      label: z ? `${methodName(fit.method)}: z = ${parameterValue(z)}` : methodName(fit.method),
       kind: "fit",
       t: tail.t,
       C: tail.C,
@@ -572,7 +573,7 @@ function takeFitOverlay(fit) {
   const profile = overlay ? /** @type {any} */ (overlay).profile : null;
   if (profile && Array.isArray(profile.x) && Array.isArray(profile.t) && Array.isArray(profile.C)) {
     state.fitOverlay.profile = {
-      label: `${fit.method} fit (dotted)`,
+      label: z ? `${methodName(fit.method)}: z = ${parameterValue(z)}` : methodName(fit.method),
       kind: "fit",
       x: profile.x,
       curves: profile.t.map((/** @type {number} */ t, /** @type {number} */ i) => ({ t, C: profile.C[i] ?? [] })),
