@@ -179,7 +179,13 @@ export function terminationText(termination) {
       if (typeof first[1] === "string" || typeof first[1] === "number") detail = String(first[1]);
     } else {
       const reason = /** @type {Record<string, unknown>} */ (termination).reason ?? /** @type {Record<string, unknown>} */ (termination).kind;
-      raw = typeof reason === "string" ? reason : JSON.stringify(termination);
+      raw =
+        typeof reason === "string"
+          ? reason
+          : entries
+              .filter(([, v]) => typeof v === "string" || typeof v === "number" || typeof v === "boolean")
+              .map(([k, v]) => `${k} ${typeof v === "number" ? formatNumber(v) : String(v)}`)
+              .join(", ") || "not reported";
     }
   } else raw = "not reported";
   const w = words(raw);
