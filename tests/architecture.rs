@@ -1,8 +1,15 @@
 //! Layering checks: lower layers never import higher ones, and the pure core
-//! never touches I/O. A failing test here names the file and the import.
+//! never touches I/O. The sources are parsed with `syn`, so grouped imports
+//! (`use crate::{fit::x, …}`), paths written inline (`crate::fit::x()`) and
+//! macro paths (`serde_json::json!`) are all seen, and only items marked
+//! `#[cfg(test)]` are skipped — not everything after the first one. A failing
+//! test names the file, the line and the path.
 
 use std::fs;
 use std::path::{Path, PathBuf};
+
+use syn::spanned::Spanned;
+use syn::visit::Visit;
 
 use crate::support::repo_path;
 
@@ -26,25 +33,151 @@ fn rust_files(dir: &Path) -> Vec<PathBuf> {
     out
 }
 
-/// The part of a source file before its `#[cfg(test)]` module: tests may use
-/// helpers (serde_json for fixtures) that the code itself must not.
-fn non_test_source(path: &Path) -> String {
-    let text = fs::read_to_string(path).expect("readable source");
-    match text.find("#[cfg(test)]") {
-        Some(i) => text[..i].to_string(),
-        None => text,
+/// Whether an item carries `#[cfg(test)]` (tests may use helpers, such as
+/// serde_json for fixtures, that the code itself must not).
+fn is_test_only(attrs: &[syn::Attribute]) -> bool {
+    attrs.iter().any(|a| {
+        a.path().is_ident("cfg")
+            && a.parse_args::<syn::Meta>()
+                .is_ok_and(|m| matches!(&m, syn::Meta::Path(p) if p.is_ident("test")))
+    })
+}
+
+/// What one source file uses outside its tests: every path (imports with
+/// groups expanded, inline paths, macro paths) with its line, and whether it
+/// contains async code.
+#[derive(Default)]
+struct Uses {
+    paths: Vec<(String, usize)>,
+    async_lines: Vec<usize>,
+}
+
+impl Uses {
+    fn push_use_tree(&mut self, prefix: &str, tree: &syn::UseTree, line: usize) {
+        match tree {
+            syn::UseTree::Path(p) => {
+                let next = format!("{prefix}{}::", p.ident);
+                self.push_use_tree(&next, &p.tree, line);
+            }
+            syn::UseTree::Name(n) => self.paths.push((format!("{prefix}{}", n.ident), line)),
+            syn::UseTree::Rename(r) => self.paths.push((format!("{prefix}{}", r.ident), line)),
+            syn::UseTree::Glob(_) => self.paths.push((format!("{prefix}*"), line)),
+            syn::UseTree::Group(g) => {
+                for t in &g.items {
+                    self.push_use_tree(prefix, t, line);
+                }
+            }
+        }
     }
 }
 
-fn assert_no_mentions(dir: &str, forbidden: &[&str]) {
-    let mut violations = Vec::new();
-    for file in rust_files(&repo_path(dir)) {
-        let text = non_test_source(&file);
-        for needle in forbidden {
-            if text.contains(needle) {
-                violations.push(format!("{} mentions `{needle}`", file.display()));
+impl<'ast> Visit<'ast> for Uses {
+    fn visit_item(&mut self, item: &'ast syn::Item) {
+        let attrs: &[syn::Attribute] = match item {
+            syn::Item::Mod(m) => &m.attrs,
+            syn::Item::Fn(f) => &f.attrs,
+            syn::Item::Use(u) => &u.attrs,
+            syn::Item::Impl(i) => &i.attrs,
+            syn::Item::Struct(s) => &s.attrs,
+            syn::Item::Enum(e) => &e.attrs,
+            syn::Item::Const(c) => &c.attrs,
+            syn::Item::Static(s) => &s.attrs,
+            syn::Item::Trait(t) => &t.attrs,
+            _ => &[],
+        };
+        if is_test_only(attrs) {
+            return;
+        }
+        syn::visit::visit_item(self, item);
+    }
+
+    fn visit_item_use(&mut self, item: &'ast syn::ItemUse) {
+        let line = item.span().start().line;
+        let prefix = if item.leading_colon.is_some() {
+            "::"
+        } else {
+            ""
+        };
+        self.push_use_tree(prefix, &item.tree, line);
+    }
+
+    fn visit_path(&mut self, path: &'ast syn::Path) {
+        let text = path
+            .segments
+            .iter()
+            .map(|s| s.ident.to_string())
+            .collect::<Vec<_>>()
+            .join("::");
+        self.paths.push((text, path.span().start().line));
+        syn::visit::visit_path(self, path);
+    }
+
+    fn visit_signature(&mut self, sig: &'ast syn::Signature) {
+        if sig.asyncness.is_some() {
+            self.async_lines.push(sig.span().start().line);
+        }
+        syn::visit::visit_signature(self, sig);
+    }
+
+    fn visit_expr_await(&mut self, e: &'ast syn::ExprAwait) {
+        self.async_lines.push(e.span().start().line);
+        syn::visit::visit_expr_await(self, e);
+    }
+
+    fn visit_expr_async(&mut self, e: &'ast syn::ExprAsync) {
+        self.async_lines.push(e.span().start().line);
+        syn::visit::visit_expr_async(self, e);
+    }
+}
+
+fn uses_of_source(text: &str) -> Result<Uses, String> {
+    let file = syn::parse_file(text).map_err(|e| e.to_string())?;
+    let mut uses = Uses::default();
+    uses.visit_file(&file);
+    Ok(uses)
+}
+
+/// A path is forbidden when it equals a forbidden prefix or continues it
+/// with `::` (so `tokio` catches `tokio::spawn` but not `tokio_stream`).
+fn matches_prefix(path: &str, forbidden: &str) -> bool {
+    path == forbidden
+        || path
+            .strip_prefix(forbidden)
+            .is_some_and(|rest| rest.starts_with("::"))
+}
+
+/// The forbidden paths (and async code, when `no_async`) in one source text.
+fn violations_in(name: &str, text: &str, forbidden: &[&str], no_async: bool) -> Vec<String> {
+    let uses = match uses_of_source(text) {
+        Ok(u) => u,
+        Err(e) => return vec![format!("{name}: does not parse: {e}")],
+    };
+    let mut out = Vec::new();
+    for (path, line) in &uses.paths {
+        for f in forbidden {
+            if matches_prefix(path, f) {
+                out.push(format!(
+                    "{name}:{line} uses `{path}` (forbidden here: `{f}`)"
+                ));
             }
         }
+    }
+    if no_async {
+        for line in &uses.async_lines {
+            out.push(format!("{name}:{line} has async code"));
+        }
+    }
+    out.sort();
+    out.dedup();
+    out
+}
+
+fn check(dir: &str, forbidden: &[&str], no_async: bool) {
+    let mut violations = Vec::new();
+    for file in rust_files(&repo_path(dir)) {
+        let text = fs::read_to_string(&file).expect("readable source");
+        let name = file.display().to_string();
+        violations.extend(violations_in(&name, &text, forbidden, no_async));
     }
     assert!(
         violations.is_empty(),
@@ -54,8 +187,56 @@ fn assert_no_mentions(dir: &str, forbidden: &[&str]) {
 }
 
 #[test]
+fn the_checker_sees_grouped_imports_inline_paths_and_code_after_tests() {
+    // A planted violation in each form the old substring check missed: a
+    // grouped import, an inline path, and production code after a test
+    // module. Test-only items stay allowed.
+    let planted = r#"
+        use crate::{numerics::special, fit::collapse::CollapseQuality};
+        #[cfg(test)]
+        mod tests {
+            use crate::fit::tail;
+            use serde_json::json;
+        }
+        pub fn after_tests() -> f64 {
+            crate::fit::tail::something()
+        }
+        pub async fn waits() { other().await; }
+    "#;
+    let found = violations_in("planted.rs", planted, &["crate::fit", "serde_json"], true);
+    assert!(
+        found.iter().any(|v| v.starts_with("planted.rs:2 ")
+            && v.contains("crate::fit::collapse::CollapseQuality")),
+        "the grouped import, named by its line: {found:?}"
+    );
+    assert!(
+        found
+            .iter()
+            .any(|v| v.contains("crate::fit::tail::something")),
+        "{found:?}"
+    );
+    assert!(found.iter().any(|v| v.contains("async code")), "{found:?}");
+    assert!(
+        !found.iter().any(|v| v.contains("serde_json")),
+        "test-only imports are allowed: {found:?}"
+    );
+    assert!(
+        !violations_in(
+            "clean.rs",
+            "use crate::numerics::special;",
+            &["crate::fit"],
+            true
+        )
+        .iter()
+        .any(|v| v.contains("uses"))
+    );
+    // `tokio_stream` is not `tokio`.
+    assert!(violations_in("ok.rs", "use tokio_stream::StreamExt;", &["tokio"], false).is_empty());
+}
+
+#[test]
 fn physics_core_has_no_io_and_no_outer_crates() {
-    assert_no_mentions(
+    check(
         "server/physics/src",
         &[
             "axum",
@@ -64,8 +245,9 @@ fn physics_core_has_no_io_and_no_outer_crates() {
             "serde_json",
             "std::fs",
             "std::net",
-            "spreadscope::",
+            "spreadscope",
         ],
+        true,
     );
     let manifest = fs::read_to_string(repo_path("server/physics/Cargo.toml")).expect("manifest");
     let deps = manifest
@@ -83,21 +265,24 @@ fn physics_core_has_no_io_and_no_outer_crates() {
 
 #[test]
 fn numerics_know_no_models_and_models_know_no_fits() {
-    assert_no_mentions(
+    check(
         "server/physics/src/numerics",
         &["crate::model", "crate::fit"],
+        false,
     );
-    assert_no_mentions("server/physics/src/model", &["crate::fit"]);
+    check("server/physics/src/model", &["crate::fit"], false);
 }
 
 #[test]
 fn main_crate_layers_point_down() {
     let up = ["crate::api", "crate::app", "crate::cli"];
-    assert_no_mentions(
+    check(
         "server/src/store",
         &[&up[..], &["crate::service", "crate::ingest", "axum"]].concat(),
+        false,
     );
-    assert_no_mentions(
+    // Parsing is pure: no files, no database, no async runtime.
+    check(
         "server/src/ingest",
         &[
             &up[..],
@@ -107,24 +292,29 @@ fn main_crate_layers_point_down() {
                 "std::fs",
                 "axum",
                 "rusqlite",
+                "tokio",
             ],
         ]
         .concat(),
+        true,
     );
-    assert_no_mentions(
+    check(
         "server/src/service",
         &[&up[..], &["axum", "rusqlite"]].concat(),
+        false,
     );
-    assert_no_mentions(
+    check(
         "server/src/api",
         &["crate::store", "rusqlite", "crate::cli", "crate::app"],
+        false,
     );
-    assert_no_mentions(
+    check(
         "server/src/dataset.rs",
         &[
             &up[..],
             &["crate::service", "crate::store", "crate::ingest"],
         ]
         .concat(),
+        false,
     );
 }

@@ -36,7 +36,7 @@
 //!   E_s[f_i(s) s_j] = 2^-N Σ_s ⟨s|σᶻ_i(t) σᶻ_j|s⟩ = 2^-N Tr[σᶻ_i(t) σᶻ_j] = C_ij(t),
 //!
 //! while E_s[f_i(s)] = 2^-N Tr σᶻ_i(t) = 2^-N Tr σᶻ_i = 0 (cyclic trace) and
-//! E_s[s_j] = 0. Hence Cov(X_i, s_j) = E[X_i s_j] − E[X_i] E[s_j] = C_ij(t):
+//! E_s\[s_j\] = 0. Hence Cov(X_i, s_j) = E\[X_i s_j\] − E\[X_i\] E\[s_j\] = C_ij(t):
 //! shot noise has zero mean given s, so it adds variance but no bias. Over
 //! the M states measured at time t the estimate is the sample covariance with
 //! the unbiased divisor,

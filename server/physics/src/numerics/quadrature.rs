@@ -219,7 +219,7 @@ impl Ord for Panel {
     }
 }
 
-/// ∫ f over the union of [breaks[i], breaks[i+1]] by globally adaptive
+/// ∫ f over the union of `[breaks[i], breaks[i+1]]` by globally adaptive
 /// Gauss–Kronrod 7/15 (QUADPACK QAG strategy): the panel with the largest
 /// error estimate is bisected until the total estimate is below
 /// max(abs_tol, rel_tol·|value|) or `max_panels` panels exist.

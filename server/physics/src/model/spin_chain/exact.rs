@@ -9,8 +9,8 @@
 //! diagonal in the spin basis, so its eigenbasis matrix A_i = Vᵀ σᶻ_i V is real
 //! symmetric and
 //!
-//!   Tr[e^{iHt} σᶻ_i e^{−iHt} σᶻ_j] = Σ_{m,n} e^{i(λ_m−λ_n)t} A_i[m,n] A_j[n,m]
-//!                                  = Σ_{m,n} cos((λ_m−λ_n)t) A_i[m,n] A_j[m,n],
+//!   Tr[e^{iHt} σᶻ_i e^{−iHt} σᶻ_j] = Σ_{m,n} e^{i(λ_m−λ_n)t} A_i\[m,n\] A_j\[n,m\]
+//!                                  = Σ_{m,n} cos((λ_m−λ_n)t) A_i\[m,n\] A_j\[m,n\],
 //!
 //! the sine part cancelling under m ↔ n. With c_m = cos λ_m t and
 //! s_m = sin λ_m t, cos((λ_m−λ_n)t) = c_m c_n + s_m s_n, so with
