@@ -1024,6 +1024,44 @@ async function main() {
       await page.waitForFunction(() => (document.querySelector("#z-band-text")?.textContent ?? "").startsWith("Best fit z = "), null, { timeout: 60000 });
     });
 
+    /**
+     * Looks at the presenting page: the figure fills the screen, the side
+     * panel is gone, the banner carries z ± error; → steps to the next view.
+     * @param {string} label the size and lettering, for messages
+     * @param {string} tag the same, for screenshot names
+     */
+    const presentationShown = async (label, tag) => {
+      await page.waitForTimeout(400);
+      const shown = await page.evaluate(() => {
+        const plot = document.querySelector("#panel-collapse")?.getBoundingClientRect();
+        const banner = document.querySelector("#present-banner");
+        const sidebar = document.querySelector("#sidebar");
+        return {
+          plot: plot ? { w: plot.width, h: plot.height, bottom: plot.bottom } : null,
+          banner: banner instanceof HTMLElement && !banner.hidden ? banner.innerText : null,
+          sidebarShown: sidebar instanceof HTMLElement && sidebar.offsetParent !== null,
+          scrollWidth: document.documentElement.scrollWidth,
+          innerWidth: window.innerWidth,
+          innerHeight: window.innerHeight,
+        };
+      });
+      assert(shown.plot !== null && shown.plot.w > 0.85 * shown.innerWidth, `the figure is ${shown.plot?.w} px wide of ${shown.innerWidth}`);
+      assert(shown.plot !== null && shown.plot.h > 0.6 * shown.innerHeight && shown.plot.bottom <= shown.innerHeight + 1, "the figure does not fill the screen");
+      assert(!shown.sidebarShown, "the side panel is still shown");
+      assert(shown.scrollWidth <= shown.innerWidth, `content ${shown.scrollWidth} px wide`);
+      const banner = shown.banner ?? "";
+      const z = banner.match(/z = (\d+\.\d+) ±\s?(\d+\.?\d*)/);
+      assert(z !== null, `no z ± error in the banner: ${JSON.stringify(banner)}`);
+      const [zValue, zErr] = [Number(z[1]), Number(z[2])];
+      assert(zValue > 0.5 && zValue < 3 && zErr > 0 && zErr < 1, `banner z = ${zValue} ± ${zErr}`);
+      measurements.push(`banner at ${label}: ${banner.replace(/\s+/g, " ")}`);
+      shots.push(await sideShot(page, args.screenshot, `present-${tag}`));
+      await page.keyboard.press("ArrowRight");
+      await page.waitForFunction(() => document.querySelector("#tab-residual")?.getAttribute("aria-selected") === "true", null, { timeout: 3000 });
+      await page.keyboard.press("Escape");
+      await page.waitForFunction(() => !document.body.classList.contains("presenting"));
+    };
+
     for (const size of [
       { width: 1280, height: 720 },
       { width: 1920, height: 1080 },
@@ -1064,35 +1102,12 @@ async function main() {
           await page.click("#tab-collapse");
           await page.keyboard.press("p");
           await page.waitForFunction(() => document.body.classList.contains("presenting"));
-          await page.waitForTimeout(400);
-          const shown = await page.evaluate(() => {
-            const plot = document.querySelector("#view-collapse")?.getBoundingClientRect();
-            const banner = document.querySelector("#present-banner");
-            const sidebar = document.querySelector("#sidebar");
-            return {
-              plot: plot ? { w: plot.width, h: plot.height, bottom: plot.bottom } : null,
-              banner: banner instanceof HTMLElement && !banner.hidden ? banner.innerText : null,
-              sidebarShown: sidebar instanceof HTMLElement && sidebar.offsetParent !== null,
-              scrollWidth: document.documentElement.scrollWidth,
-              innerWidth: window.innerWidth,
-              innerHeight: window.innerHeight,
-            };
-          });
-          assert(shown.plot !== null && shown.plot.w > 0.85 * shown.innerWidth, `the figure is ${shown.plot?.w} px wide of ${shown.innerWidth}`);
-          assert(shown.plot !== null && shown.plot.h > 0.6 * shown.innerHeight && shown.plot.bottom <= shown.innerHeight + 1, "the figure does not fill the screen");
-          assert(!shown.sidebarShown, "the side panel is still shown");
-          assert(shown.scrollWidth <= shown.innerWidth, `content ${shown.scrollWidth} px wide`);
-          const banner = shown.banner ?? "";
-          const z = banner.match(/z = (\d+\.\d+) ±\s?(\d+\.?\d*)/);
-          assert(z !== null, `no z ± error in the banner: ${JSON.stringify(banner)}`);
-          const [zValue, zErr] = [Number(z[1]), Number(z[2])];
-          assert(zValue > 0.5 && zValue < 3 && zErr > 0 && zErr < 1, `banner z = ${zValue} ± ${zErr}`);
-          measurements.push(`banner at ${label}: ${banner.replace(/\s+/g, " ")}`);
-          shots.push(await sideShot(page, args.screenshot, `present-${size.width}${large ? "-large" : ""}`));
-          await page.keyboard.press("ArrowRight");
-          await page.waitForFunction(() => document.querySelector("#tab-residual")?.getAttribute("aria-selected") === "true", null, { timeout: 3000 });
-          await page.keyboard.press("Escape");
-          await page.waitForFunction(() => !document.body.classList.contains("presenting"));
+          try {
+            await presentationShown(label, `${size.width}${large ? "-large" : ""}`);
+          } finally {
+            // A failed look must not leave the next checks on a presenting page.
+            if (await page.evaluate(() => document.body.classList.contains("presenting"))) await page.keyboard.press("Escape");
+          }
         });
       }
     }
