@@ -1101,7 +1101,7 @@ export function drawQualityScan(el, input) {
     showlegend: false,
     title: { text: "quality S(z) — lower is better", font: { size: fs(13) }, x: 0.02, xanchor: "left", y: 0.97 },
     xaxis: { ...small, title: { text: "" } },
-    yaxis: { ...small, type: spread > 30 ? "log" : "linear", nticks: 4 },
+    yaxis: { ...small, ...(spread > 30 ? { type: "log", ...logTicks(100) } : { type: "linear", nticks: 4 }) },
     shapes,
   };
   return Plotly.react(el, traces, layout, { displayModeBar: false, responsive: true, staticPlot: false });
