@@ -4,6 +4,8 @@
 // rejected uploads, its line-numbered problems. It knows nothing about the
 // page's elements or about plotting.
 
+import { plainMessage } from "./words.js";
+
 /**
  * @typedef {object} Session
  * @property {string} name
@@ -341,7 +343,7 @@ export class ApiError extends Error {
    * @param {number | null} [retryAfter] seconds the server asked to wait (429)
    */
   constructor(status, message, problems, retryAfter = null) {
-    super(message);
+    super(plainMessage(message));
     this.name = "ApiError";
     this.status = status;
     this.problems = problems;

@@ -3,7 +3,7 @@
 // setting and the live event stream, and wires the other modules together:
 // api.js for the server, header.js, desk.js, datasets.js, metaform.js,
 // windows.js, views.js, collapse.js, residuals.js, compare.js, shots.js,
-// couplings.js, fits.js, theory.js and log.js for the page. Live updates arrive as server-sent
+// couplings.js, fits.js, theory.js, log.js and present.js for the page. Live updates arrive as server-sent
 // events; after a dropped stream reconnects, everything is read again.
 
 import { ApiError, SessionApi, tokenFromLocation } from "./api.js";
@@ -20,15 +20,17 @@ import { renderSession, setLiveState, wireCopyButtons } from "./header.js";
 import { wireLog } from "./log.js";
 import { fillMetaForm, wireMetaForm } from "./metaform.js";
 import { formatNumber } from "./format.js";
-import { plottingAvailable, setTextScale } from "./plot.js";
+import { plottingAvailable } from "./plot.js";
 import { largeText, setLargeText } from "./prefs.js";
+import { applyTextScale, wirePresentation } from "./present.js";
 import { wireResiduals } from "./residuals.js";
 import { wireShotUpload, wireSiteView } from "./shots.js";
 import { wireTheory } from "./theory.js";
 import { readViewState, writeViewState } from "./urlstate.js";
-import { VIEW_NAMES, activate, showDataset, showNothing, wireViews } from "./views.js";
+import { VIEW_NAMES, activate, activeView, showDataset, showNothing, wireViews } from "./views.js";
 import { initWindows, setDefaultWindows, setWindowTimeUnit, wireWindows } from "./windows.js";
 import { showVerdictFor } from "./verdict.js";
+import { noteWords } from "./words.js";
 
 /** @typedef {import("./api.js").DatasetSummary} DatasetSummary */
 /** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
@@ -69,11 +71,13 @@ function idFromHash() {
 }
 
 /**
- * Puts the chosen dataset in the address so a copied link opens on it.
+ * Puts the chosen dataset in the address so a copied link opens on it; a
+ * change of dataset is a step in the browser's history.
  * @param {string} id
+ * @param {boolean} push
  */
-function writeHash(id) {
-  writeViewState({ dataset: id });
+function writeHash(id, push) {
+  writeViewState({ dataset: id }, { push });
 }
 
 /**
@@ -84,7 +88,7 @@ function applyLargeText(on) {
   document.documentElement.classList.toggle("large-text", on);
   const button = byId("large-text", HTMLButtonElement);
   button.setAttribute("aria-pressed", on ? "true" : "false");
-  setTextScale(on ? 1.3 : 1);
+  applyTextScale(on);
 }
 
 function wireLargeText() {
@@ -137,7 +141,7 @@ function renderFacts(d) {
     ["Content hash", d.content_hash.slice(0, 16) + "…", d.content_hash],
     ["Added", d.created_at],
   ]);
-  byId("dataset-notes", HTMLElement).replaceChildren(...d.notes.map((n) => h("li", {}, [n])));
+  byId("dataset-notes", HTMLElement).replaceChildren(...d.notes.map((n) => h("li", {}, [noteWords(n)])));
   const userNotes = byId("dataset-user-notes", HTMLElement);
   userNotes.textContent = d.meta.notes ? `Notes: ${d.meta.notes}` : "";
   userNotes.hidden = !d.meta.notes;
@@ -148,15 +152,18 @@ function renderList() {
 }
 
 /**
- * Chooses a dataset and loads its arrays.
+ * Chooses a dataset and loads its arrays. `history: false` is for a choice
+ * that comes from the address itself (Back, Forward, an edited fragment).
  * @param {string} id
+ * @param {{history?: boolean}} [options]
  */
-async function select(id) {
+async function select(id, options = {}) {
   const api = app.api;
   if (api === null) return;
   const changed = app.selectedId !== id;
+  const hadOne = app.selectedId !== null;
   app.selectedId = id;
-  writeHash(id);
+  writeHash(id, changed && hadOne && options.history !== false);
   renderList();
   byId("meta-panel", HTMLElement).hidden = !app.canEdit;
   const seq = ++app.loadSeq;
@@ -252,6 +259,32 @@ function followEvents() {
   });
 }
 
+/**
+ * Steps to the next or previous dataset of the list (presentation keys).
+ * @param {number} step
+ */
+function stepDataset(step) {
+  const ids = app.datasets.map((d) => String(d.id));
+  if (ids.length === 0) return;
+  const i = app.selectedId === null ? -1 : ids.indexOf(app.selectedId);
+  const next = ids[(i + step + ids.length) % ids.length];
+  if (next !== undefined) void select(next);
+}
+
+/**
+ * Brings the page to what the address says, after Back, Forward or an
+ * edited fragment, without reloading.
+ */
+function followAddress() {
+  const wanted = readViewState();
+  const ids = app.datasets.map((d) => String(d.id));
+  if (wanted.dataset !== null && wanted.dataset !== app.selectedId && ids.includes(wanted.dataset)) {
+    void select(wanted.dataset, { history: false });
+  }
+  const view = VIEW_NAMES.find((v) => v === wanted.view);
+  if (view !== undefined && view !== activeView()) activate(view, { history: false });
+}
+
 async function main() {
   const initial = readViewState();
   wireCopyButtons();
@@ -260,6 +293,7 @@ async function main() {
   initWindows({ t_min: initial.t_min, t_max: initial.t_max, x_max: initial.x_max });
   wireWindows();
   wireViews();
+  wirePresentation({ stepDataset });
   if (!plottingAvailable()) {
     fatal("The plotting library did not load, so no plot can be drawn. Reload the page; if it persists, the server's assets are incomplete.");
   }
@@ -293,7 +327,7 @@ async function main() {
   wireTheory(api);
   wireLog(api, app.canEdit);
   const view = VIEW_NAMES.find((v) => v === initial.view);
-  if (view !== undefined) activate(view);
+  if (view !== undefined) activate(view, { history: false });
   if (app.canEdit) {
     wireUpload(api, (summary) => {
       void refreshList().then(() => select(String(summary.id)));
@@ -308,6 +342,10 @@ async function main() {
   }
   followEvents();
   await refreshList();
+  // Back and Forward between pushed entries fire popstate; a fragment typed
+  // into the address bar fires hashchange. Both lead to the same place.
+  window.addEventListener("popstate", followAddress);
+  window.addEventListener("hashchange", followAddress);
 }
 
 void main();

@@ -8,6 +8,7 @@
 
 import { ApiError } from "./api.js";
 import { byId, h } from "./dom.js";
+import { withError } from "./fitformat.js";
 import { formatNumber } from "./format.js";
 import { clearPlot, drawCouplingDecay, drawCouplingMatrix, fitToContainer } from "./plot.js";
 import { drawFailed, isVisible, note, registerView } from "./views.js";
@@ -44,16 +45,6 @@ export function byDistance(matrix) {
     }),
   );
   return { r, J };
-}
-
-/**
- * A value with its error, or the value alone when the server gave none.
- * @param {number} value
- * @param {number | null | undefined} err
- * @returns {string}
- */
-function withError(value, err) {
-  return err === null || err === undefined || !Number.isFinite(err) ? formatNumber(value) : `${formatNumber(value)} ± ${formatNumber(err)}`;
 }
 
 /**

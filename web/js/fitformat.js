@@ -74,6 +74,39 @@ export function withError(value, err) {
 }
 
 /**
+ * The unit of D for a dataset: sites^z per time unit, with the dataset's
+ * unit when it is set.
+ * @param {import("./api.js").DatasetDetail} d
+ * @returns {string}
+ */
+export function dUnit(d) {
+  const unit = d.meta.time_unit ? d.meta.time_unit.trim() : "";
+  if (unit === "") return "sites^z per time unit";
+  const needsBrackets = /[\s/*·]/.test(unit);
+  return `sites^z / ${needsBrackets ? `(${unit})` : unit}`;
+}
+
+/**
+ * A parameter of a fit for the banner: fixed ones say so, others carry the
+ * statistical error and, when the server sends one, the window systematic.
+ * @param {import("./api.js").FitParameter} p
+ * @returns {string}
+ */
+export function parameterValue(p) {
+  const extra = /** @type {{fixed?: boolean, err_sys?: number | null}} */ (p);
+  if (extra.fixed) return `${withError(p.value, null)} (fixed)`;
+  const stat = p.err ?? p.err_bootstrap ?? null;
+  const text = withError(p.value, stat);
+  const sys = extra.err_sys ?? null;
+  if (stat !== null && sys !== null && Number.isFinite(sys) && sys > 0) {
+    // Both errors rounded at the place of the statistical one.
+    const digits = Math.max(0, 1 - Math.floor(Math.log10(stat)));
+    return `${text} (stat) ±\u00a0${digits <= 8 ? sys.toFixed(digits) : String(sys)} (window)`;
+  }
+  return text;
+}
+
+/**
  * The error of a parameter rounded to two significant digits, or a dash.
  * @param {number | null | undefined} err
  * @returns {string}
@@ -146,7 +179,13 @@ export function terminationText(termination) {
       if (typeof first[1] === "string" || typeof first[1] === "number") detail = String(first[1]);
     } else {
       const reason = /** @type {Record<string, unknown>} */ (termination).reason ?? /** @type {Record<string, unknown>} */ (termination).kind;
-      raw = typeof reason === "string" ? reason : JSON.stringify(termination);
+      raw =
+        typeof reason === "string"
+          ? reason
+          : entries
+              .filter(([, v]) => typeof v === "string" || typeof v === "number" || typeof v === "boolean")
+              .map(([k, v]) => `${k} ${typeof v === "number" ? formatNumber(v) : String(v)}`)
+              .join(", ") || "not reported";
     }
   } else raw = "not reported";
   const w = words(raw);
@@ -181,7 +220,7 @@ export function fitSummary(fit) {
   const names = parameterOrder(fit);
   const parts = names.slice(0, 3).map((name) => {
     const p = /** @type {FitParameter} */ (fit.parameters[name]);
-    return `${parameterText(name)[0]} = ${withError(p.value, p.err ?? p.err_bootstrap ?? null)}`;
+    return `${parameterText(name)[0]} = ${parameterValue(p)}`;
   });
   return `${methodName(fit.method)}${parts.length > 0 ? ": " + parts.join(", ") : ""}`;
 }

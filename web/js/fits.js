@@ -9,11 +9,12 @@ import { ApiError, FIT_METHODS } from "./api.js";
 import { emit, on } from "./bus.js";
 import { byId, h } from "./dom.js";
 import { cancelFit, runFit } from "./fitrunner.js";
-import { METHOD_TEXT, errText, fitSummary, methodName, parameterOrder, parameterText, qualityRows, terminationText, withError } from "./fitformat.js";
+import { METHOD_TEXT, dUnit, errText, fitSummary, methodName, parameterOrder, parameterText, parameterValue, qualityRows, terminationText, withError } from "./fitformat.js";
 import { formatNumber } from "./format.js";
 import { pinForm } from "./pinform.js";
 import { activate } from "./views.js";
 import { windowChipList } from "./windows.js";
+import { reportName, valueWords } from "./words.js";
 
 /** @typedef {import("./api.js").SessionApi} SessionApi */
 /** @typedef {import("./api.js").FitResult} FitResult */
@@ -168,16 +169,19 @@ function viewFor(fit) {
  */
 function parameterTable(fit) {
   const names = parameterOrder(fit);
+  const shown = state.detail;
+  const d = shown !== null && String(shown.id) === String(fit.dataset) ? shown : null;
   const head = h("tr", {}, [h("th", { scope: "col" }, ["Parameter"]), h("th", { scope: "col" }, ["Value ± error"])]);
   const rows = names.map((name) => {
     const p = fit.parameters[name];
-    const [symbol, meaning] = parameterText(name);
+    const [symbol, generic] = parameterText(name);
+    const meaning = name === "D" && d !== null ? `transport coefficient, ${dUnit(d)}` : generic;
     if (!p) return h("tr", {}, []);
-    const boot = p.err_bootstrap;
+    const boot = /** @type {{fixed?: boolean}} */ (p).fixed ? null : p.err_bootstrap;
     return h("tr", { "data-parameter": name }, [
       h("th", { scope: "row", title: meaning }, [symbol, meaning ? h("span", { class: "param-meaning" }, [meaning]) : ""]),
       h("td", { class: "num" }, [
-        h("span", { class: "param-value" }, [withError(p.value, p.err)]),
+        h("span", { class: "param-value" }, [parameterValue(p)]),
         ...(boot !== null && boot !== undefined
           ? [h("span", { class: "param-boot", title: "one-sigma error from resampling" }, [`bootstrap ± ${errText(boot)}`])]
           : []),
@@ -202,6 +206,40 @@ function windowErrorText(p, fit) {
 }
 
 /**
+ * One value of a report in words: numbers rounded, identifiers named, a
+ * scan summarised by its range and its best point, a pair as an interval.
+ * @param {string} key
+ * @param {unknown} value
+ * @returns {string | null} null for values with nothing to say
+ */
+function reportValue(key, value) {
+  if (typeof value === "number") return formatNumber(value);
+  if (typeof value === "string" || typeof value === "boolean") return valueWords(value);
+  if (Array.isArray(value)) {
+    const numbers = value.every((v) => typeof v === "number");
+    if (numbers && value.length === 2) return `${formatNumber(value[0])} … ${formatNumber(value[1])}`;
+    const pairs = value.every((v) => Array.isArray(v) && v.length >= 2 && typeof v[0] === "number" && typeof v[1] === "number");
+    if (pairs && value.length > 0) {
+      const first = /** @type {number[]} */ (value[0]);
+      const last = /** @type {number[]} */ (value[value.length - 1]);
+      const best = /** @type {number[][]} */ (value).reduce((a, b) => ((b[1] ?? Infinity) < (a[1] ?? Infinity) ? b : a));
+      const name = key === "z_scan" ? "z" : "x";
+      return `${value.length} values of ${name} from ${formatNumber(first[0] ?? NaN)} to ${formatNumber(last[0] ?? NaN)}; lowest ${formatNumber(best[1] ?? NaN)} at ${name} = ${formatNumber(best[0] ?? NaN)}`;
+    }
+    if (numbers && value.length > 0) return `${value.length} values from ${formatNumber(Math.min(...value))} to ${formatNumber(Math.max(...value))}`;
+    return null;
+  }
+  if (value && typeof value === "object") {
+    const parts = Object.entries(value)
+      .filter(([, v]) => typeof v === "number" || typeof v === "string" || typeof v === "boolean")
+      .slice(0, 6)
+      .map(([k, v]) => `${reportName(k)} ${typeof v === "number" ? formatNumber(v) : valueWords(/** @type {string | boolean} */ (v))}`);
+    return parts.length > 0 ? parts.join(", ") : null;
+  }
+  return null;
+}
+
+/**
  * Method-specific detail of a report, shown folded: scalars as a list,
  * arrays by their length; the local exponent of the tail fit as a table.
  * @param {FitResult} fit
@@ -212,13 +250,9 @@ function reportDetails(fit) {
   const items = [];
   for (const [key, value] of Object.entries(report)) {
     if (key === "local_exponent" && Array.isArray(value)) continue;
-    let text;
-    if (typeof value === "number") text = formatNumber(value);
-    else if (typeof value === "string" || typeof value === "boolean") text = String(value);
-    else if (Array.isArray(value)) text = `${value.length} values`;
-    else if (value && typeof value === "object") text = Object.entries(value).filter(([, v]) => typeof v === "number" || typeof v === "string").slice(0, 6).map(([k, v]) => `${k} ${typeof v === "number" ? formatNumber(v) : v}`).join(", ") || "…";
-    else continue;
-    items.push(h("div", { class: "fact" }, [h("dt", {}, [key.replace(/_/g, " ")]), h("dd", {}, [text])]));
+    const text = reportValue(key, value);
+    if (text === null) continue;
+    items.push(h("div", { class: "fact" }, [h("dt", {}, [reportName(key)]), h("dd", {}, [text])]));
   }
   const children = [];
   if (items.length > 0) children.push(h("dl", { class: "facts facts-more" }, items));

@@ -4,6 +4,7 @@
 // plotting.
 
 import { byId } from "./dom.js";
+import { formulaNodes } from "./words.js";
 
 /** @typedef {import("./api.js").Session} Session */
 
@@ -37,7 +38,7 @@ export function renderSession(session) {
   byId("share-edit", HTMLElement).hidden = !editUrl;
   byId("copy-edit", HTMLButtonElement).hidden = !editUrl;
 
-  byId("conventions", HTMLElement).textContent = session.conventions;
+  byId("conventions", HTMLElement).replaceChildren(...formulaNodes(session.conventions));
   const version = session.program_version.startsWith("spreadscope")
     ? session.program_version
     : `spreadscope ${session.program_version}`;

@@ -9,6 +9,8 @@
 // y = t^{1/z} C in the collapse; the reference line z = min(2α − 1, 2);
 // the power law J / r^α through the coupling fit, from the server's J and α).
 
+import { FIT_METHODS } from "./api.js";
+import { methodName } from "./fitformat.js";
 import { formatNumber } from "./format.js";
 import {
   categoryColours,
@@ -87,10 +89,44 @@ function axis(title, type, lengthPx) {
     ticklen: 6,
     automargin: true,
     exponentformat: "power",
-    // On long log axes label only 2 and 5 between decades (the full 2…9 row
-    // is unreadable from the back of a room); on short ones whole decades.
-    ...(type === "log" ? { dtick: lengthPx >= 250 ? "D2" : 1 } : {}),
+    ...(type === "log" ? logTicks(lengthPx) : {}),
   };
+}
+
+/**
+ * Tick marks of a log axis, each labelled with its full value ("0.2", "2",
+ * "20", "2×10⁵") so that 0.2 and 2 never look alike. Long axes get 1, 2 and 5
+ * in every decade, short ones 1 and 3, so that even an axis spanning less
+ * than a decade carries two labels. Plotly shows the ticks inside the range.
+ * @param {number} lengthPx room the axis has on screen, in CSS pixels
+ * @returns {PlotObject}
+ */
+function logTicks(lengthPx) {
+  const steps = lengthPx >= 250 ? [1, 2, 5] : [1, 3];
+  /** @type {number[]} */
+  const tickvals = [];
+  /** @type {string[]} */
+  const ticktext = [];
+  for (let exp = -12; exp <= 12; exp += 1) {
+    for (const m of steps) {
+      tickvals.push(m * 10 ** exp);
+      ticktext.push(logTickText(m, exp));
+    }
+  }
+  return { tickmode: "array", tickvals, ticktext };
+}
+
+const SUPERSCRIPT = /** @type {Record<string, string>} */ ({ "-": "⁻", 0: "⁰", 1: "¹", 2: "²", 3: "³", 4: "⁴", 5: "⁵", 6: "⁶", 7: "⁷", 8: "⁸", 9: "⁹" });
+
+/**
+ * @param {number} mantissa 1 … 9
+ * @param {number} exp power of ten
+ * @returns {string} "0.02", "500" or "2×10⁻⁵"
+ */
+function logTickText(mantissa, exp) {
+  if (exp >= -3 && exp <= 4) return String(Number((mantissa * 10 ** exp).toPrecision(1)));
+  const power = `10${String(exp).replace(/./g, (c) => SUPERSCRIPT[c] ?? c)}`;
+  return mantissa === 1 ? power : `${mantissa}×${power}`;
 }
 
 /**
@@ -380,10 +416,31 @@ export function drawSlices(el, input) {
     }
     return trace;
   });
-  for (const overlay of input.overlays ?? []) {
+  const overlays = input.overlays ?? [];
+  if (overlays.length > 0) {
+    // The data step back (thinner, lighter) so that the model curves, drawn
+    // after them in a dark colour on a white halo, stay visible on top.
+    for (const trace of traces) {
+      trace.opacity = 0.7;
+      /** @type {PlotObject} */ (trace.line).width = 1.5;
+      /** @type {PlotObject} */ (trace.marker).size = 6;
+    }
+  }
+  for (const overlay of overlays) {
+    const ink = overlay.kind === "theory" ? THEORY_INK : FIT_INK;
     overlay.curves.forEach((curve, k) => {
       const i = series.findIndex((s) => Math.abs(s.t - curve.t) <= 1e-9 * Math.max(1, Math.abs(s.t)));
       if (i < 0) return;
+      traces.push({
+        type: "scatter",
+        mode: "lines",
+        showlegend: false,
+        hoverinfo: "skip",
+        x: overlay.x,
+        y: curve.C,
+        line: { color: "rgba(255,255,255,0.9)", width: 6 },
+        connectgaps: false,
+      });
       traces.push({
         type: "scatter",
         mode: "lines",
@@ -392,7 +449,7 @@ export function drawSlices(el, input) {
         showlegend: k === 0,
         x: overlay.x,
         y: curve.C,
-        line: { color: colours[i] ?? INK, width: 2.5, dash: overlay.kind === "theory" ? "dash" : "dot" },
+        line: { color: ink, width: 3, dash: overlay.kind === "theory" ? "dash" : "solid" },
         connectgaps: false,
         hovertemplate: `${plain(overlay.label)}<br>t = ${formatNumber(curve.t)}${unit}<br>x = %{x}<br>C = %{y:.4~g}<extra></extra>`,
       });
@@ -1044,7 +1101,7 @@ export function drawQualityScan(el, input) {
     showlegend: false,
     title: { text: "quality S(z) — lower is better", font: { size: fs(13) }, x: 0.02, xanchor: "left", y: 0.97 },
     xaxis: { ...small, title: { text: "" } },
-    yaxis: { ...small, type: spread > 30 ? "log" : "linear", nticks: 4 },
+    yaxis: { ...small, ...(spread > 30 ? { type: "log", ...logTicks(100) } : { type: "linear", nticks: 4 }) },
     shapes,
   };
   return Plotly.react(el, traces, layout, { displayModeBar: false, responsive: true, staticPlot: false });
@@ -1109,8 +1166,16 @@ export function drawDifferenceMap(el, input) {
  * @returns {Promise<unknown>}
  */
 export function drawComparison(elZ, elD, input) {
-  const methods = [...new Set([...input.z, ...input.D].map((p) => p.method))].sort();
-  const colours = categoryColours(methods.length);
+  // Each estimator keeps its colour and marker whatever else is pinned or
+  // retracted: its place in the fixed list of estimators picks them.
+  const known = /** @type {readonly string[]} */ (FIT_METHODS);
+  const seen = [...new Set([...input.z, ...input.D].map((p) => p.method))];
+  const extra = seen.filter((m) => !known.includes(m)).sort();
+  const order = [...known, ...extra];
+  const methods = order.filter((m) => seen.includes(m));
+  const palette = categoryColours(order.length);
+  const colours = methods.map((m) => palette[order.indexOf(m)]);
+  const symbols = methods.map((m) => SYMBOLS[order.indexOf(m) % SYMBOLS.length]);
   /**
    * @param {ComparisonPoint[]} points
    * @param {string} what
@@ -1123,13 +1188,14 @@ export function drawComparison(elZ, elD, input) {
         return {
           type: "scatter",
           mode: "markers",
-          name: m,
+          name: methodName(m),
+          legendgroup: m,
           x: mine.map((p) => p.alpha),
           y: mine.map((p) => p.value),
           text: mine.map((p) => p.label),
           error_y: { type: "data", array: mine.map((p) => p.err ?? 0), visible: true, color: colours[k], thickness: 2, width: 6 },
-          marker: { color: colours[k], size: 13, symbol: SYMBOLS[k % SYMBOLS.length], line: { color: "#ffffff", width: 1 } },
-          hovertemplate: `%{text}<br>α = %{x}<br>${what} = %{y:.4~g}<extra>${plain(m)}</extra>`,
+          marker: { color: colours[k], size: 13, symbol: symbols[k], line: { color: "#ffffff", width: 1 } },
+          hovertemplate: `%{text}<br>α = %{x}<br>${what} = %{y:.4~g}<extra>${plain(methodName(m))}</extra>`,
         };
       })
       .filter((t) => t.x.length > 0);

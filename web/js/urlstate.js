@@ -35,12 +35,14 @@ export function readViewState() {
 }
 
 /**
- * Merges values into the fragment without adding a history entry (dragging
- * a slider must not fill the back button with hundreds of steps). `null`
- * removes a key.
+ * Merges values into the fragment. By default no history entry is added
+ * (dragging a slider must not fill the back button with hundreds of steps);
+ * `push` adds one, for a change of dataset or view that Back should undo.
+ * `null` removes a key.
  * @param {Partial<ViewState>} changes
+ * @param {{push?: boolean}} [options]
  */
-export function writeViewState(changes) {
+export function writeViewState(changes, options = {}) {
   const url = new URL(window.location.href);
   const params = new URLSearchParams(url.hash.replace(/^#/, ""));
   for (const [key, value] of Object.entries(changes)) {
@@ -48,5 +50,7 @@ export function writeViewState(changes) {
     else params.set(key, typeof value === "number" ? String(Number(value.toPrecision(6))) : value);
   }
   url.hash = params.toString();
-  window.history.replaceState(null, "", url);
+  if (url.href === window.location.href) return;
+  if (options.push) window.history.pushState(null, "", url);
+  else window.history.replaceState(null, "", url);
 }

@@ -9,6 +9,7 @@
 
 import { emit, on } from "./bus.js";
 import { byId, h } from "./dom.js";
+import { methodName, parameterValue } from "./fitformat.js";
 import { formatNumber } from "./format.js";
 import {
   clearPlot,
@@ -32,9 +33,11 @@ import { getWindows, setWindows } from "./windows.js";
 /** @typedef {import("./plot.js").LineOverlay} LineOverlay */
 
 export const VIEW_NAMES = /** @type {const} */ (["map", "slices", "auto", "sum", "collapse", "residual", "compare", "sites", "couplings"]);
-/** The views that "four at once" shows. */
+/** The views drawn by this module (the others register themselves). */
 const GRID_VIEWS = /** @type {const} */ (["map", "slices", "auto", "sum"]);
 /** @typedef {typeof GRID_VIEWS[number]} DataView */
+/** Views that may share the screen in the panel grid, in the order they are laid out. */
+export const PANEL_CHOICES = /** @type {const} */ (["map", "slices", "auto", "sum", "collapse", "residual"]);
 
 /** How many slices "Spread 5" and a fresh dataset show. */
 const DEFAULT_SLICES = 5;
@@ -64,8 +67,10 @@ const state = {
   sliceIdx: [],
   /** @type {ViewName} */
   active: "map",
-  /** Whether four views are shown at once. */
+  /** Whether several views are shown at once, in a grid. */
   grid: false,
+  /** The views the grid shows, chosen by the person. @type {ViewName[]} */
+  gridViews: /** @type {ViewName[]} */ (["map", "slices", "auto", "sum"]),
   /** What a drag does on the autocorrelation and the slices. @type {"select" | "zoom"} */
   dragAuto: "select",
   /** @type {"select" | "zoom"} */
@@ -429,18 +434,27 @@ export function activeView() {
  * @returns {boolean} whether the view is on screen
  */
 export function isVisible(view) {
-  if (state.grid) return (/** @type {readonly string[]} */ (GRID_VIEWS)).includes(view);
+  if (state.grid) return state.gridViews.includes(view);
   return state.active === view;
 }
 
+/** @returns {boolean} whether several views share the screen */
+export function gridShown() {
+  return state.grid;
+}
+
 /**
- * Shows one view. A view outside the four-at-once set ends that layout.
+ * Shows one view. A view outside the grid's chosen set ends that layout.
+ * A change made by the person adds a step to the browser's history, so Back
+ * returns to the view before; `history: false` is for changes that come
+ * from the history itself.
  * @param {ViewName} view
- * @param {{focus?: boolean}} [options]
+ * @param {{focus?: boolean, history?: boolean}} [options]
  */
 export function activate(view, options = {}) {
+  const changed = state.active !== view;
   state.active = view;
-  if (state.grid && !(/** @type {readonly string[]} */ (GRID_VIEWS)).includes(view)) setGrid(false);
+  if (state.grid && !state.gridViews.includes(view)) setGrid(false);
   for (const name of VIEW_NAMES) {
     const tab = byId(`tab-${name}`, HTMLButtonElement);
     const isOn = name === view;
@@ -449,33 +463,67 @@ export function activate(view, options = {}) {
     byId(`panel-${name}`, HTMLElement).classList.toggle("is-active", isOn);
     if (isOn && options.focus) tab.focus();
   }
-  writeViewState({ view });
-  if (view === "map" || view === "slices" || view === "auto" || view === "sum") fitToContainer(plotEl(view));
+  writeViewState({ view }, { push: changed && options.history !== false });
+  if (state.grid) {
+    window.requestAnimationFrame(() => redrawAll());
+  } else if (view === "map" || view === "slices" || view === "auto" || view === "sum") fitToContainer(plotEl(view));
   else registered[view]?.shown();
   emit("view", view);
 }
 
+/** Marks the panels that belong to the grid and sets its columns. */
+function layoutGrid() {
+  const views = byId("views", HTMLElement);
+  const chosen = PANEL_CHOICES.filter((v) => state.gridViews.includes(v));
+  for (const name of VIEW_NAMES) {
+    byId(`panel-${name}`, HTMLElement).classList.toggle("in-grid", chosen.includes(/** @type {any} */ (name)));
+  }
+  const n = Math.max(1, chosen.length);
+  const columns = n <= 1 ? 1 : n <= 4 ? 2 : 3;
+  views.style.setProperty("--grid-columns", String(columns));
+  views.style.setProperty("--grid-rows", String(Math.ceil(n / columns)));
+  for (const box of document.querySelectorAll("#grid-choices input[type=checkbox]")) {
+    if (box instanceof HTMLInputElement) box.checked = state.gridViews.includes(/** @type {ViewName} */ (box.value));
+  }
+}
+
 /**
+ * Shows several views at once, or one.
  * @param {boolean} grid
  */
-function setGrid(grid) {
+export function setGrid(grid) {
   state.grid = grid;
   const views = byId("views", HTMLElement);
   const toggle = byId("layout-toggle", HTMLButtonElement);
+  layoutGrid();
   views.classList.toggle("is-grid", grid);
   document.body.classList.toggle("views-grid", grid);
   toggle.setAttribute("aria-pressed", grid ? "true" : "false");
-  toggle.textContent = grid ? "Show one view" : "Show four at once";
-  if (grid && !(/** @type {readonly string[]} */ (GRID_VIEWS)).includes(state.active)) activate("map");
+  toggle.textContent = grid ? "One view" : "Several views";
+  if (grid && !state.gridViews.includes(state.active)) activate(state.gridViews[0] ?? "map", { history: false });
   // The panels change size with the layout; let the browser lay them out
   // first, then redraw, since legend placement and tick density follow size.
   window.requestAnimationFrame(() => redrawAll());
 }
 
+/**
+ * Chooses the views of the grid (at least one).
+ * @param {ViewName[]} views
+ */
+export function setGridViews(views) {
+  const chosen = PANEL_CHOICES.filter((v) => views.includes(v));
+  if (chosen.length === 0) return;
+  state.gridViews = [...chosen];
+  if (state.grid) setGrid(true);
+  else layoutGrid();
+}
+
 /** Redraws every visible view (after a layout or lettering change). */
 export function redrawAll() {
   for (const view of GRID_VIEWS) DRAW[view]();
-  registered[state.active]?.shown();
+  if (state.grid) {
+    for (const view of state.gridViews) if (!(/** @type {readonly string[]} */ (GRID_VIEWS)).includes(view)) registered[view]?.shown();
+  } else registered[state.active]?.shown();
 }
 
 /** Shows the current time-axis choice in both of its radio groups. */
@@ -515,7 +563,7 @@ function takeFitOverlay(fit) {
   const tail = overlay ? /** @type {any} */ (overlay).tail : null;
   if (tail && Array.isArray(tail.t) && Array.isArray(tail.C)) {
     state.fitOverlay.tail = {
-      label: z ? `${fit.method} fit: z = ${formatNumber(z.value)}` : `${fit.method} fit`,
+      label: z ? `${methodName(fit.method)}: z = ${parameterValue(z)}` : methodName(fit.method),
       kind: "fit",
       t: tail.t,
       C: tail.C,
@@ -525,7 +573,7 @@ function takeFitOverlay(fit) {
   const profile = overlay ? /** @type {any} */ (overlay).profile : null;
   if (profile && Array.isArray(profile.x) && Array.isArray(profile.t) && Array.isArray(profile.C)) {
     state.fitOverlay.profile = {
-      label: `${fit.method} fit (dotted)`,
+      label: z ? `${methodName(fit.method)}: z = ${parameterValue(z)}` : methodName(fit.method),
       kind: "fit",
       x: profile.x,
       curves: profile.t.map((/** @type {number} */ t, /** @type {number} */ i) => ({ t, C: profile.C[i] ?? [] })),
@@ -579,6 +627,17 @@ export function wireViews() {
   });
 
   byId("layout-toggle", HTMLButtonElement).addEventListener("click", () => setGrid(!state.grid));
+  for (const box of document.querySelectorAll("#grid-choices input[type=checkbox]")) {
+    if (!(box instanceof HTMLInputElement)) continue;
+    box.addEventListener("change", () => {
+      const picked = [...document.querySelectorAll("#grid-choices input[type=checkbox]")]
+        .filter((b) => b instanceof HTMLInputElement && b.checked)
+        .map((b) => /** @type {ViewName} */ (/** @type {HTMLInputElement} */ (b).value));
+      if (picked.length === 0) box.checked = true;
+      else setGridViews(picked);
+    });
+  }
+  layoutGrid();
   byId("save-png", HTMLButtonElement).addEventListener("click", () => saveFigures("png"));
   byId("save-svg", HTMLButtonElement).addEventListener("click", () => saveFigures("svg"));
 
