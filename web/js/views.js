@@ -535,6 +535,23 @@ function takeFitOverlay(fit) {
 }
 
 /**
+ * A figure file's name from its content: the session for a cross-run view,
+ * else the dataset; the view; the method of the fit drawn on it, if any.
+ * @param {ViewName} view
+ * @returns {string}
+ */
+function figureFileName(view) {
+  const clean = (/** @type {string} */ text) => text.replace(/[^\p{L}\p{N}._-]+/gu, "-").replace(/^-+|-+$/g, "");
+  const crossRun = view === "compare";
+  const session = document.getElementById("session-name")?.textContent ?? "session";
+  const owner = crossRun || !state.detail ? session : state.detail.name;
+  const viewLabel = crossRun ? "across-runs" : view;
+  const overlay = view === "auto" ? state.fitOverlay.tail : view === "slices" ? state.fitOverlay.profile : null;
+  const method = overlay ? (overlay.label.split(" ")[0] ?? "") : "";
+  return ["spreadscope", owner, viewLabel, method].map(clean).filter((p) => p !== "").join("_");
+}
+
+/**
  * Downloads the figures of the active view.
  * @param {"png" | "svg"} format
  */
@@ -547,10 +564,10 @@ function saveFigures(format) {
     status.textContent = "Nothing drawn in this view to save.";
     return;
   }
-  const name = state.detail ? state.detail.name.replace(/[^\p{L}\p{N}._-]+/gu, "-").replace(/^-+|-+$/g, "") : "session";
+  const name = figureFileName(view);
   drawn.forEach((el, i) => {
     const suffix = drawn.length > 1 ? `-${i + 1}` : "";
-    downloadFigure(el, format, `spreadscope-${name}-${view}${suffix}`).catch((e) => {
+    downloadFigure(el, format, `${name}${suffix}`).catch((e) => {
       status.textContent = `Could not save the figure: ${e instanceof Error ? e.message : String(e)}`;
     });
   });
