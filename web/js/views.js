@@ -12,7 +12,7 @@ import { byId, h } from "./dom.js";
 import { formatNumber } from "./format.js";
 import {
   clearPlot,
-  downloadFigure,
+  downloadFigureWithProvenance,
   drawAutocorrelation,
   drawMap,
   drawSlices,
@@ -552,6 +552,24 @@ function figureFileName(view) {
 }
 
 /**
+ * The title and provenance line written into a saved figure.
+ * @param {ViewName} view
+ * @returns {{title: string, provenance: string}}
+ */
+function figureLabels(view) {
+  const session = document.getElementById("session-name")?.textContent ?? "session";
+  const viewTitle = document.getElementById(`tab-${view}`)?.textContent?.trim() || view;
+  const d = view === "compare" ? null : state.detail;
+  const title = d ? `${viewTitle} — ${d.name}` : `${viewTitle} — ${session}`;
+  const parts = [`spreadscope`, `session “${session}”`];
+  if (d) parts.push(`dataset “${d.name}”, data hash ${d.content_hash.slice(0, 12)}`);
+  const overlay = view === "auto" ? state.fitOverlay.tail : view === "slices" ? state.fitOverlay.profile : null;
+  if (overlay) parts.push(overlay.label);
+  parts.push(`saved ${new Date().toISOString().slice(0, 16).replace("T", " ")} UTC`);
+  return { title, provenance: parts.join(" · ") };
+}
+
+/**
  * Downloads the figures of the active view.
  * @param {"png" | "svg"} format
  */
@@ -567,7 +585,8 @@ function saveFigures(format) {
   const name = figureFileName(view);
   drawn.forEach((el, i) => {
     const suffix = drawn.length > 1 ? `-${i + 1}` : "";
-    downloadFigure(el, format, `${name}${suffix}`).catch((e) => {
+    const { title, provenance } = figureLabels(view);
+    downloadFigureWithProvenance(el, format, `${name}${suffix}`, title, provenance).catch((e) => {
       status.textContent = `Could not save the figure: ${e instanceof Error ? e.message : String(e)}`;
     });
   });
