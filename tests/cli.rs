@@ -426,3 +426,60 @@ fn analyze_reads_a_correlation_map_from_hdf5() {
         ingest::parse(&bytes, Format::Hdf5, &IngestOptions::default()).expect("map.h5 parses");
     assert!(parsed.map.n_sites() > 0 && parsed.map.n_times() > 0);
 }
+
+#[test]
+fn session_new_list_and_rename_work_on_a_data_directory() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let data = dir.path().to_str().expect("utf-8 path");
+    let run = |args: &[&str]| {
+        let out = spreadscope()
+            .arg("session")
+            .args(args)
+            .args(["--data", data, "--json"])
+            .output()
+            .expect("runs");
+        (
+            out.status.code(),
+            String::from_utf8_lossy(&out.stdout).into_owned(),
+            String::from_utf8_lossy(&out.stderr).into_owned(),
+        )
+    };
+    let (code, out, err) = run(&["new", "Chain A"]);
+    assert_eq!(code, Some(0), "{err}");
+    let made: serde_json::Value = serde_json::from_str(&out).expect("json");
+    assert_eq!(made[0]["name"], "Chain A");
+    let edit_url = made[0]["edit_url"].as_str().expect("edit link").to_string();
+    run(&["new", "Chain B"]);
+
+    let (code, out, _) = run(&["list"]);
+    assert_eq!(code, Some(0));
+    let list: serde_json::Value = serde_json::from_str(&out).expect("json");
+    let names: Vec<&str> = list
+        .as_array()
+        .expect("list")
+        .iter()
+        .filter_map(|s| s["name"].as_str())
+        .collect();
+    assert_eq!(
+        names,
+        ["Chain A", "Chain B"],
+        "no demo session added by these commands"
+    );
+
+    let (code, out, err) = run(&["rename", &edit_url, "Chain A, long run"]);
+    assert_eq!(code, Some(0), "{err}");
+    assert!(out.contains("Chain A, long run"));
+    let number = list[1]["number"].to_string();
+    let (code, _, _) = run(&["rename", &number, "Chain B2"]);
+    assert_eq!(code, Some(0));
+    let (_, out, _) = run(&["list"]);
+    assert!(out.contains("Chain B2") && out.contains("Chain A, long run"));
+
+    let (code, _, err) = run(&["rename", "999", "x"]);
+    assert_eq!(code, Some(2));
+    assert!(err.contains("999"), "{err}");
+    let long = "y".repeat(201);
+    let (code, _, err) = run(&["rename", &number, &long]);
+    assert_eq!(code, Some(2));
+    assert!(err.contains("200 characters"), "{err}");
+}

@@ -6,6 +6,7 @@ mod bad_input;
 mod browser;
 mod cli;
 mod crash;
+mod exports;
 mod fits;
 mod load;
 mod parsers_prop;

@@ -35,6 +35,8 @@ pub enum Command {
     Correlate(crate::correlate::CorrelateArgs),
     /// Compute a reference model's C(x,t) and write it as long CSV `x,t,C[,err]`.
     Simulate(crate::simulate::SimulateArgs),
+    /// Create, list and rename the sessions of a data directory.
+    Session(crate::session_cli::SessionArgs),
 }
 
 #[derive(Debug, clap::Args)]
@@ -70,6 +72,7 @@ pub fn run(cli: Cli) -> ExitCode {
         Command::Simulate(args) => crate::simulate::run(&args),
         Command::Analyze(args) => crate::analyze::run(&args),
         Command::Correlate(args) => crate::correlate::run(&args),
+        Command::Session(args) => crate::session_cli::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -14,5 +14,6 @@ pub mod dataset;
 pub mod ingest;
 pub mod loadcheck;
 pub mod service;
+pub mod session_cli;
 pub mod simulate;
 pub mod store;

@@ -617,6 +617,21 @@ export class SessionApi {
   }
 
   /** @returns {string} */
+  comparisonCsvUrl() {
+    return `${this.base}/comparison.csv`;
+  }
+
+  /**
+   * A pinned fit's fitted curves or residual map as CSV.
+   * @param {number} entry
+   * @param {"curves" | "residuals"} table
+   * @returns {string}
+   */
+  fitTableCsvUrl(entry, table) {
+    return `${this.base}/log/${encodeURIComponent(String(entry))}/${table}.csv`;
+  }
+
+  /** @returns {string} */
   reportUrl() {
     return `${this.base}/report.html`;
   }

@@ -108,6 +108,8 @@ function renderEntry(entry, retractedBy, fresh) {
       ]),
     );
   }
+  const tables = fitTables(entry, fit);
+  if (tables) li.append(tables);
   const provenance = [];
   if (entry.dataset_hash) provenance.push(["data hash", entry.dataset_hash.slice(0, 16) + "…", entry.dataset_hash]);
   if (fit) {
@@ -198,6 +200,29 @@ function render() {
   if (fresh.size > 0) noteUnread(fresh.size);
 }
 
+/**
+ * Download links for a pinned fit's fitted curves and residual map (CSV),
+ * when the fit drew any.
+ * @param {LogEntry} entry
+ * @param {any} fit
+ * @returns {HTMLElement | null}
+ */
+function fitTables(entry, fit) {
+  const api = state.api;
+  const overlay = fit && typeof fit.overlay === "object" && fit.overlay !== null ? fit.overlay : null;
+  if (api === null || overlay === null) return null;
+  /** @type {(Node | string)[]} */
+  const links = [];
+  if (overlay.tail || overlay.profile) {
+    links.push(h("a", { href: api.fitTableCsvUrl(entry.id, "curves"), download: "", "data-testid": "curves-csv" }, ["fitted curves (CSV)"]));
+  }
+  if (overlay.residual) {
+    if (links.length > 0) links.push(" · ");
+    links.push(h("a", { href: api.fitTableCsvUrl(entry.id, "residuals"), download: "", "data-testid": "residuals-csv" }, ["residual map (CSV)"]));
+  }
+  return links.length > 0 ? h("p", { class: "log-tables small" }, ["Download: ", ...links]) : null;
+}
+
 async function refresh() {
   const api = state.api;
   if (api === null) return;
@@ -225,6 +250,8 @@ export function wireLog(api, canEdit) {
   byId("log-csv", HTMLAnchorElement).href = api.logCsvUrl();
   byId("log-json", HTMLAnchorElement).href = api.logJsonUrl();
   byId("report-link", HTMLAnchorElement).href = api.reportUrl();
+  const compareCsv = document.getElementById("compare-csv");
+  if (compareCsv instanceof HTMLAnchorElement) compareCsv.href = api.comparisonCsvUrl();
   if (canEdit) {
     wireAuthorLine(byId("author-line", HTMLElement));
     byId("note-slot", HTMLElement).replaceChildren(

@@ -1486,3 +1486,35 @@ export function drawLocalExponent(el, input) {
   layout.annotations = input.references.map(([label, v]) => ({ xref: "paper", x: 1, xanchor: "right", y: v, yanchor: "bottom", text: plain(label), showarrow: false, font: { color: THEORY_INK, size: fs(12) } }));
   return Plotly.react(el, traces, layout, config());
 }
+
+// ---- i11-data: figure files with their title and provenance ----
+
+/**
+ * Downloads a drawn figure as PNG or SVG with a title and a provenance line
+ * written into the image, so a saved file says what it shows and where it
+ * came from. The figure on screen is left as it is.
+ * @param {HTMLElement} el
+ * @param {"png" | "svg"} format
+ * @param {string} filename without extension
+ * @param {string} title
+ * @param {string} provenance
+ * @returns {Promise<unknown>}
+ */
+export function downloadFigureWithProvenance(el, format, filename, title, provenance) {
+  if (!el.classList.contains("js-plotly-plot")) return Promise.reject(new Error("this figure is not drawn"));
+  const gd = /** @type {any} */ (el);
+  const base = gd.layout ?? {};
+  const margin = { ...(base.margin ?? {}) };
+  margin.t = Math.max(Number(margin.t ?? 0), 60);
+  margin.b = Math.max(Number(margin.b ?? 0), 100);
+  const note = { text: provenance, xref: "paper", yref: "paper", x: 0, y: 0, xanchor: "left", yanchor: "top", yshift: -70, showarrow: false, font: { size: 11 } };
+  const layout = { ...base, title: { text: title }, margin, annotations: [...(base.annotations ?? []), note] };
+  const figure = { data: gd.data ?? [], layout };
+  return Plotly.downloadImage(/** @type {any} */ (figure), {
+    format,
+    filename,
+    width: Math.max(400, el.clientWidth),
+    height: Math.max(300, el.clientHeight) + 60,
+    scale: format === "png" ? 2 : 1,
+  });
+}

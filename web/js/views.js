@@ -13,7 +13,7 @@ import { methodName, parameterValue } from "./fitformat.js";
 import { formatNumber } from "./format.js";
 import {
   clearPlot,
-  downloadFigure,
+  downloadFigureWithProvenance,
   drawAutocorrelation,
   drawMap,
   drawSlices,
@@ -583,6 +583,41 @@ function takeFitOverlay(fit) {
 }
 
 /**
+ * A figure file's name from its content: the session for a cross-run view,
+ * else the dataset; the view; the method of the fit drawn on it, if any.
+ * @param {ViewName} view
+ * @returns {string}
+ */
+function figureFileName(view) {
+  const clean = (/** @type {string} */ text) => text.replace(/[^\p{L}\p{N}._-]+/gu, "-").replace(/^-+|-+$/g, "");
+  const crossRun = view === "compare";
+  const session = document.getElementById("session-name")?.textContent ?? "session";
+  const owner = crossRun || !state.detail ? session : state.detail.name;
+  const viewLabel = crossRun ? "across-runs" : view;
+  const overlay = view === "auto" ? state.fitOverlay.tail : view === "slices" ? state.fitOverlay.profile : null;
+  const method = overlay ? (overlay.label.split(" ")[0] ?? "") : "";
+  return ["spreadscope", owner, viewLabel, method].map(clean).filter((p) => p !== "").join("_");
+}
+
+/**
+ * The title and provenance line written into a saved figure.
+ * @param {ViewName} view
+ * @returns {{title: string, provenance: string}}
+ */
+function figureLabels(view) {
+  const session = document.getElementById("session-name")?.textContent ?? "session";
+  const viewTitle = document.getElementById(`tab-${view}`)?.textContent?.trim() || view;
+  const d = view === "compare" ? null : state.detail;
+  const title = d ? `${viewTitle} — ${d.name}` : `${viewTitle} — ${session}`;
+  const parts = [`spreadscope`, `session “${session}”`];
+  if (d) parts.push(`dataset “${d.name}”, data hash ${d.content_hash.slice(0, 12)}`);
+  const overlay = view === "auto" ? state.fitOverlay.tail : view === "slices" ? state.fitOverlay.profile : null;
+  if (overlay) parts.push(overlay.label);
+  parts.push(`saved ${new Date().toISOString().slice(0, 16).replace("T", " ")} UTC`);
+  return { title, provenance: parts.join(" · ") };
+}
+
+/**
  * Downloads the figures of the active view.
  * @param {"png" | "svg"} format
  */
@@ -595,10 +630,11 @@ function saveFigures(format) {
     status.textContent = "Nothing drawn in this view to save.";
     return;
   }
-  const name = state.detail ? state.detail.name.replace(/[^\p{L}\p{N}._-]+/gu, "-").replace(/^-+|-+$/g, "") : "session";
+  const name = figureFileName(view);
   drawn.forEach((el, i) => {
     const suffix = drawn.length > 1 ? `-${i + 1}` : "";
-    downloadFigure(el, format, `spreadscope-${name}-${view}${suffix}`).catch((e) => {
+    const { title, provenance } = figureLabels(view);
+    downloadFigureWithProvenance(el, format, `${name}${suffix}`, title, provenance).catch((e) => {
       status.textContent = `Could not save the figure: ${e instanceof Error ? e.message : String(e)}`;
     });
   });

@@ -91,7 +91,12 @@ pub fn text(path: &str) -> Option<String> {
 /// The dashboard page with the asset prefix filled in, or `None` if the
 /// front end is missing from the build.
 pub fn index_html() -> Option<String> {
-    let file = WebFiles::get("index.html")?;
+    page_html("index.html")
+}
+
+/// An embedded HTML page with the asset prefix filled in.
+pub fn page_html(path: &str) -> Option<String> {
+    let file = WebFiles::get(path)?;
     let text = String::from_utf8_lossy(&file.data).into_owned();
     Some(text.replace("%ASSETS%", &prefix()))
 }

@@ -27,8 +27,9 @@ use tower_http::timeout::TimeoutLayer;
 use crate::dataset::DatasetMeta;
 use crate::ingest::shots::ShotFormat;
 use crate::ingest::{Format, IngestOptions};
+use crate::service::exports::FitTable;
 use crate::service::fits::{FitRequest, Windows};
-use crate::service::log::{self as pinned, PinRequest};
+use crate::service::log::PinRequest;
 use crate::service::shots::ShotOptions;
 use crate::service::theory::TheoryRequest;
 use crate::service::{CONVENTIONS, PROGRAM_VERSION, Service, ServiceError};
@@ -57,6 +58,7 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
     let api = Router::new()
         .route("/sessions", post(create_session))
         .route("/s/{token}", get(session_info))
+        .route("/s/{token}/name", put(rename_session))
         .route(
             "/s/{token}/datasets",
             get(list_datasets)
@@ -79,6 +81,12 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
         .route("/s/{token}/log.json", get(get_log_json))
         .route("/s/{token}/log.csv", get(get_log_csv))
         .route("/s/{token}/comparison", get(get_comparison))
+        .route("/s/{token}/comparison.csv", get(get_comparison_csv))
+        .route("/s/{token}/log/{entry}/curves.csv", get(get_curves_csv))
+        .route(
+            "/s/{token}/log/{entry}/residuals.csv",
+            get(get_residuals_csv),
+        )
         .route("/s/{token}/datasets/{id}/fits", post(run_fit))
         .route(
             "/s/{token}/datasets/{id}/collapse-quality",
@@ -190,12 +198,13 @@ fn parse_json<T: serde::de::DeserializeOwned>(body: &[u8], what: &str) -> Result
     })
 }
 
-async fn home() -> Html<&'static str> {
-    Html(
-        "<!doctype html><meta charset=utf-8><title>spreadscope</title>\
-         <p>spreadscope is running. Open a session link printed by the server \
-         (<code>/s/…</code>), or create one with <code>POST /api/sessions</code>.</p>",
-    )
+/// The start page: create, name, rename and list sessions (see
+/// `web/js/start.js` for which sessions it lists).
+async fn home() -> Response {
+    match assets::page_html("start.html") {
+        Some(html) => ([(header::CACHE_CONTROL, "no-store")], Html(html)).into_response(),
+        None => (StatusCode::NOT_FOUND, "front end missing from this build").into_response(),
+    }
 }
 
 async fn page(State(service): State<Service>, Path(token): Path<String>) -> Response {
@@ -259,6 +268,23 @@ async fn session_info(
         "program_version": PROGRAM_VERSION,
         "conventions": CONVENTIONS,
     })))
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct Rename {
+    name: String,
+}
+
+async fn rename_session(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+    body: Bytes,
+) -> ApiResult<Json<Value>> {
+    let access = service.access(&token).await?;
+    let request: Rename = parse_json(&body, "rename request")?;
+    let name = service.rename_session(&access, &request.name).await?;
+    Ok(Json(json!({"name": name})))
 }
 
 async fn list_datasets(
@@ -557,18 +583,20 @@ async fn get_log_csv(
     Path(token): Path<String>,
 ) -> ApiResult<Response> {
     let access = service.access(&token).await?;
-    let entries = service.log(&access).await?;
-    Ok((
-        [
-            (header::CONTENT_TYPE, "text/csv; charset=utf-8"),
-            (
-                header::CONTENT_DISPOSITION,
-                "attachment; filename=\"spreadscope-log.csv\"",
-            ),
-        ],
-        pinned::to_csv(&entries),
-    )
-        .into_response())
+    let csv = service.log_csv(&access).await?;
+    Ok(csv_download(csv, "spreadscope-log.csv"))
+}
+
+/// A CSV body offered for download under `file_name`.
+fn csv_download(body: String, file_name: &str) -> Response {
+    let disposition = format!("attachment; filename=\"{file_name}\"");
+    let mut response = ([(header::CONTENT_TYPE, "text/csv; charset=utf-8")], body).into_response();
+    if let Ok(value) = HeaderValue::from_str(&disposition) {
+        response
+            .headers_mut()
+            .insert(header::CONTENT_DISPOSITION, value);
+    }
+    response
 }
 
 async fn run_fit(
@@ -661,6 +689,35 @@ async fn get_comparison(
     Ok(Json(json!(service.comparison(&access).await?)))
 }
 
+async fn get_comparison_csv(
+    State(service): State<Service>,
+    Path(token): Path<String>,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let csv = service.comparison_csv(&access).await?;
+    Ok(csv_download(csv, "spreadscope-comparison.csv"))
+}
+
+async fn get_curves_csv(
+    State(service): State<Service>,
+    Path((token, entry)): Path<(String, i64)>,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let (csv, name) = service.fit_table(&access, entry, FitTable::Curves).await?;
+    Ok(csv_download(csv, &name))
+}
+
+async fn get_residuals_csv(
+    State(service): State<Service>,
+    Path((token, entry)): Path<(String, i64)>,
+) -> ApiResult<Response> {
+    let access = service.access(&token).await?;
+    let (csv, name) = service
+        .fit_table(&access, entry, FitTable::Residuals)
+        .await?;
+    Ok(csv_download(csv, &name))
+}
+
 /// The self-contained report, served with a policy that allows exactly its
 /// own inline scripts (by hash) and nothing from anywhere.
 async fn get_report(
@@ -668,7 +725,7 @@ async fn get_report(
     Path(token): Path<String>,
 ) -> ApiResult<Response> {
     let access = service.access(&token).await?;
-    let library = assets::text("vendor/plotly/plotly.min.js")
+    let library = assets::text("vendor/plotly/plotly-cartesian.min.js")
         .ok_or_else(|| ServiceError::Internal("plotting library missing from the build".into()))?;
     let report = service.report(&access, &library).await?;
     let hashes: Vec<String> = report

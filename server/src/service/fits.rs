@@ -86,7 +86,7 @@ impl Windows {
     }
 
     /// The sub-map in the window.
-    fn apply(&self, map: &CorrelationMap) -> ServiceResult<CorrelationMap> {
+    pub(super) fn apply(&self, map: &CorrelationMap) -> ServiceResult<CorrelationMap> {
         self.check()?;
         map.window(self.t_min, self.t_max, self.x_max)
             .map_err(|e| ServiceError::BadRequest(format!("field `windows`: {e}")))
@@ -950,28 +950,5 @@ impl Service {
     #[must_use]
     pub fn cancel_job(&self, access: &Access, job: &str) -> bool {
         self.jobs.cancel(access.session.id, job)
-    }
-
-    /// The collapse quality S at one z (for dragging a slider).
-    ///
-    /// # Errors
-    /// NotFound, BadRequest for a bad window or z.
-    pub async fn collapse_quality(
-        &self,
-        access: &Access,
-        dataset: i64,
-        windows: Windows,
-        z: f64,
-    ) -> ServiceResult<Value> {
-        if !(z.is_finite() && z > 0.0) {
-            return Err(ServiceError::BadRequest(
-                "parameter `z`: must be a positive number".into(),
-            ));
-        }
-        let (_, map) = self.dataset(access, dataset).await?;
-        let windowed = windows.apply(&map)?;
-        let quality = CollapseQuality::new(&windowed).map_err(bad)?;
-        let value = quality.quality_value(z);
-        Ok(json!({"z": z, "quality": value.s, "n_points": value.n_pairs}))
     }
 }

@@ -201,6 +201,22 @@ impl Service {
         Ok(row.into())
     }
 
+    /// The session's log as CSV, one quantity per column (see [`to_csv`]).
+    ///
+    /// # Errors
+    /// Database failure.
+    pub async fn log_csv(&self, access: &Access) -> ServiceResult<String> {
+        let entries = self.log(access).await?;
+        let alphas: std::collections::HashMap<i64, f64> = self
+            .datasets(access)
+            .await?
+            .into_iter()
+            .filter_map(|d| Some((d.id, d.meta.alpha?)))
+            .collect();
+        to_csv(&entries, &|id| alphas.get(&id).copied())
+            .map_err(|e| ServiceError::Internal(e.to_string()))
+    }
+
     /// The session's log, oldest first.
     ///
     /// # Errors
@@ -212,59 +228,124 @@ impl Service {
     }
 }
 
-/// The log as CSV (RFC 4180 quoting). Text that a spreadsheet would run as a
-/// formula (leading `=`, `+`, `-`, `@`) is prefixed with `'`. Parameters of a
-/// fit appear as `name=value±error` pairs; the full report is the last column.
+/// The columns of the log CSV, in order: one quantity per column, one value
+/// per cell. The full fit report is only in the JSON export (a report can
+/// exceed a spreadsheet's 32,767-character cell limit).
+pub const CSV_HEADER: [&str; 21] = [
+    "entry",
+    "time (UTC)",
+    "author",
+    "dataset",
+    "dataset hash",
+    "α",
+    "method",
+    "t_min",
+    "t_max",
+    "x_max",
+    "z",
+    "z error (stat.)",
+    "z error (window)",
+    "D (sites^z per time unit)",
+    "D error (stat.)",
+    "D error (window)",
+    "χ²/dof",
+    "collapse quality S",
+    "retracts entry",
+    "retracted by",
+    "comment",
+];
+
+/// Plain words for a fit method's name.
 #[must_use]
-pub fn to_csv(entries: &[LogEntry]) -> String {
-    let mut out = String::from(
-        "id,created_at,author,comment,dataset,dataset_name,dataset_hash,retracts,method,parameters,program_version,fit_json\n",
-    );
+pub fn method_label(method: &str) -> &str {
+    match method {
+        "tail" => "return-probability tail",
+        "width" => "width growth",
+        "collapse" => "scaling collapse",
+        "profile" => "profile fit",
+        "lattice_walk" => "lattice-walk fit",
+        "short_time" => "short-time check",
+        "analysis" => "all estimators",
+        other => other,
+    }
+}
+
+/// The log as CSV (RFC 4180 quoting, UTF-8 with a byte-order mark so that
+/// spreadsheets read α and χ² correctly). `alpha` gives each dataset's α
+/// from its metadata. Text that a spreadsheet would run as a formula
+/// (leading `=`, `+`, `-`, `@`) is prefixed with `'`. Numbers are written in
+/// full (shortest exact decimal form); a quantity a fit does not give is an
+/// empty cell.
+///
+/// # Errors
+/// Only if writing to memory fails.
+pub fn to_csv(
+    entries: &[LogEntry],
+    alpha: &dyn Fn(i64) -> Option<f64>,
+) -> Result<String, csv::Error> {
+    let mut retracted_by = std::collections::HashMap::new();
+    for e in entries {
+        if let Some(old) = e.retracts {
+            retracted_by.entry(old).or_insert(e.id);
+        }
+    }
+    let mut writer = csv::Writer::from_writer(Vec::from("\u{feff}".as_bytes()));
+    writer.write_record(CSV_HEADER)?;
+    let number = |v: Option<f64>| v.filter(|v| v.is_finite()).map(|v| v.to_string());
     for e in entries {
         let fit = e.fit.as_ref();
+        let field = |path: &[&str]| -> Option<f64> {
+            let mut v = fit?;
+            for key in path {
+                v = v.get(key)?;
+            }
+            v.as_f64()
+        };
+        let windows = fit.and_then(|f| f.get("windows")).map(|w| match w {
+            Value::Array(list) => list.first().cloned().unwrap_or(Value::Null),
+            other => other.clone(),
+        });
+        let window = |name: &str| {
+            windows
+                .as_ref()
+                .and_then(|w| w.get(name))
+                .and_then(Value::as_f64)
+        };
         let method = fit
             .and_then(|f| f.get("method"))
             .and_then(Value::as_str)
-            .unwrap_or("");
-        let parameters = fit.map(parameter_summary).unwrap_or_default();
-        let fields = [
+            .map(method_label)
+            .unwrap_or_default();
+        let row = [
             e.id.to_string(),
             e.created_at.clone(),
             text_cell(&e.author),
-            text_cell(&e.comment),
-            e.dataset.map(|d| d.to_string()).unwrap_or_default(),
             e.dataset_name.as_deref().map(text_cell).unwrap_or_default(),
             e.dataset_hash.clone().unwrap_or_default(),
+            number(e.dataset.and_then(alpha)).unwrap_or_default(),
+            method.to_string(),
+            number(window("t_min")).unwrap_or_default(),
+            number(window("t_max")).unwrap_or_default(),
+            number(window("x_max")).unwrap_or_default(),
+            number(field(&["parameters", "z", "value"])).unwrap_or_default(),
+            number(field(&["parameters", "z", "err"])).unwrap_or_default(),
+            number(field(&["parameters", "z", "err_sys"])).unwrap_or_default(),
+            number(field(&["parameters", "D", "value"])).unwrap_or_default(),
+            number(field(&["parameters", "D", "err"])).unwrap_or_default(),
+            number(field(&["parameters", "D", "err_sys"])).unwrap_or_default(),
+            number(field(&["quality", "chi2_dof"])).unwrap_or_default(),
+            number(field(&["quality", "collapse_quality"])).unwrap_or_default(),
             e.retracts.map(|d| d.to_string()).unwrap_or_default(),
-            text_cell(method),
-            parameters,
-            e.program_version.clone(),
-            fit.map(Value::to_string).unwrap_or_default(),
+            retracted_by
+                .get(&e.id)
+                .map(ToString::to_string)
+                .unwrap_or_default(),
+            text_cell(&e.comment),
         ];
-        let line: Vec<String> = fields.iter().map(|f| quote(f)).collect();
-        out.push_str(&line.join(","));
-        out.push('\n');
+        writer.write_record(&row)?;
     }
-    out
-}
-
-/// `name=value±err; …` from a report's `parameters` object of
-/// `{name: {value, err}}`.
-fn parameter_summary(fit: &Value) -> String {
-    let Some(params) = fit.get("parameters").and_then(Value::as_object) else {
-        return String::new();
-    };
-    params
-        .iter()
-        .map(|(name, p)| {
-            let value = p.get("value").map(Value::to_string).unwrap_or_default();
-            match p.get("err").filter(|e| !e.is_null()) {
-                Some(err) => format!("{name}={value}±{err}"),
-                None => format!("{name}={value}"),
-            }
-        })
-        .collect::<Vec<_>>()
-        .join("; ")
+    let bytes = writer.into_inner().map_err(|e| e.into_error())?;
+    Ok(String::from_utf8_lossy(&bytes).into_owned())
 }
 
 fn text_cell(text: &str) -> String {
@@ -275,37 +356,50 @@ fn text_cell(text: &str) -> String {
     }
 }
 
-fn quote(field: &str) -> String {
-    if field.contains([',', '"', '\n', '\r']) {
-        format!("\"{}\"", field.replace('"', "\"\""))
-    } else {
-        field.to_string()
-    }
-}
-
 #[cfg(test)]
 mod tests {
     use super::*;
 
     #[test]
-    fn csv_quotes_and_defuses_formulas() {
-        let entry = LogEntry {
-            id: 1,
+    fn csv_quotes_defuses_formulas_and_puts_one_quantity_per_cell() {
+        let entry = |id, retracts, fit| LogEntry {
+            id,
             created_at: "t".into(),
             author: "=cmd()".into(),
             comment: "a, \"quoted\"\nline".into(),
             dataset: Some(2),
-            dataset_name: None,
+            dataset_name: Some("run 1".into()),
             dataset_hash: Some("h".into()),
-            retracts: None,
-            fit: Some(
-                serde_json::json!({"method": "tail", "parameters": {"z": {"value": 1.5, "err": 0.1}}}),
-            ),
+            retracts,
+            fit,
             program_version: "v".into(),
         };
-        let csv = to_csv(&[entry]);
-        let row = csv.lines().nth(1).expect("row");
-        assert!(row.starts_with("1,t,'=cmd(),\"a, \"\"quoted\"\""));
-        assert!(csv.contains("z=1.5±0.1"));
+        let fit = serde_json::json!({"method": "tail", "windows": {"t_min": 2.5},
+            "parameters": {"z": {"value": 1.5, "err": 0.1}}, "quality": {"chi2_dof": 0.9}});
+        let csv = to_csv(
+            &[entry(1, None, Some(fit)), entry(2, Some(1), None)],
+            &|id| (id == 2).then_some(1.25),
+        )
+        .expect("csv");
+        let mut reader = csv::Reader::from_reader(csv.trim_start_matches('\u{feff}').as_bytes());
+        let header = reader.headers().expect("header").clone();
+        assert_eq!(header.iter().collect::<Vec<_>>(), CSV_HEADER);
+        let rows: Vec<csv::StringRecord> = reader.records().map(|r| r.expect("row")).collect();
+        let cell = |row: usize, name: &str| {
+            let k = CSV_HEADER.iter().position(|h| *h == name).expect("column");
+            rows[row][k].to_string()
+        };
+        assert_eq!(cell(0, "author"), "'=cmd()");
+        assert_eq!(cell(0, "comment"), "a, \"quoted\"\nline");
+        assert_eq!(cell(0, "α"), "1.25");
+        assert_eq!(cell(0, "method"), "return-probability tail");
+        assert_eq!(cell(0, "t_min"), "2.5");
+        assert_eq!(cell(0, "t_max"), "");
+        assert_eq!(cell(0, "z"), "1.5");
+        assert_eq!(cell(0, "z error (stat.)"), "0.1");
+        assert_eq!(cell(0, "z error (window)"), "");
+        assert_eq!(cell(0, "χ²/dof"), "0.9");
+        assert_eq!(cell(0, "retracted by"), "2");
+        assert_eq!(cell(1, "retracts entry"), "1");
     }
 }

@@ -6,8 +6,10 @@
 //! status codes. Talks to the database only through [`crate::store`].
 
 mod demo;
+pub mod exports;
 pub mod fits;
 pub mod log;
+pub mod quality;
 pub mod report;
 pub mod shots;
 pub mod theory;
@@ -185,6 +187,7 @@ pub struct Service {
     heavy_limit: usize,
     jobs: Arc<fits::Jobs>,
     log_cache: Arc<log::LogCache>,
+    quality_cache: Arc<quality::QualityCache>,
 }
 
 impl Service {
@@ -199,6 +202,7 @@ impl Service {
             heavy_limit: config.heavy_jobs.max(1) + config.heavy_queue,
             jobs: Arc::new(fits::Jobs::default()),
             log_cache: Arc::new(log::LogCache::default()),
+            quality_cache: Arc::new(quality::QualityCache::default()),
         }
     }
 
@@ -270,18 +274,7 @@ impl Service {
     /// # Errors
     /// The random source or the database fails.
     pub async fn create_session(&self, name: &str) -> ServiceResult<SessionTokens> {
-        let name = name.trim();
-        if name.chars().count() > 200 {
-            return Err(ServiceError::BadRequest(
-                "field `name`: longer than 200 characters".into(),
-            ));
-        }
-        let name = if name.is_empty() {
-            "Untitled session"
-        } else {
-            name
-        }
-        .to_string();
+        let name = session_name(name)?;
         let edit_token = new_token()?;
         let view_token = new_token()?;
         let now = now_utc();
@@ -292,6 +285,21 @@ impl Service {
             edit_token,
             view_token,
         })
+    }
+
+    /// Renames the session of an edit link and tells every open page.
+    ///
+    /// # Errors
+    /// Forbidden for view links, BadRequest for a bad name, database failure.
+    pub async fn rename_session(&self, access: &Access, name: &str) -> ServiceResult<String> {
+        access.require_edit()?;
+        let name = session_name(name)?;
+        let (id, n) = (access.session.id, name.clone());
+        if !self.db(move |s| s.rename_session(id, &n)).await? {
+            return Err(ServiceError::NotFound);
+        }
+        self.publish(id, "session-renamed", id);
+        Ok(name)
     }
 
     /// All sessions with their tokens, for the operator's console only.
@@ -556,6 +564,30 @@ fn is_token_shaped(token: &str) -> bool {
         && token
             .bytes()
             .all(|b| b.is_ascii_hexdigit() && !b.is_ascii_uppercase())
+}
+
+/// A session's name as given, trimmed: at most 200 characters without
+/// control characters; empty becomes "Untitled session".
+///
+/// # Errors
+/// BadRequest naming the field.
+pub fn session_name(name: &str) -> ServiceResult<String> {
+    let name = name.trim();
+    if name.chars().count() > 200 {
+        return Err(ServiceError::BadRequest(
+            "field `name`: longer than 200 characters".into(),
+        ));
+    }
+    if name.chars().any(char::is_control) {
+        return Err(ServiceError::BadRequest(
+            "field `name`: contains control characters".into(),
+        ));
+    }
+    Ok(if name.is_empty() {
+        "Untitled session".to_string()
+    } else {
+        name.to_string()
+    })
 }
 
 /// SHA-256 over a canonical encoding of the map (axes, values, errors,

@@ -1,7 +1,11 @@
 //! The self-contained session report: one HTML file with the session's
-//! datasets (summaries, space-time maps, autocorrelations, sum rules), the
-//! pinned log with provenance, and the comparison of pinned z and D. Opens
-//! from disk with no server: plotting code and data are inlined.
+//! datasets (summaries, space-time maps on a log colour scale,
+//! autocorrelations, sum rules), the pinned log with provenance, the
+//! comparison of pinned z and D, and each pinned fit's figures (collapse at
+//! its z, fitted C(0,t) law, model profiles). Opens from disk with no
+//! server: plotting code and data are inlined. The page is the template
+//! `report.html`, the drawing code `report.js`; numbers drawn in figures are
+//! rounded to four significant digits to keep the file small.
 //!
 //! The api layer supplies the plotting library's text (it owns the embedded
 //! assets) and serves the report with a content-security policy that allows
@@ -11,7 +15,7 @@ use serde::Serialize;
 use serde_json::{Value, json};
 use sha2::{Digest, Sha256};
 
-use super::log::LogEntry;
+use super::log::{LogEntry, method_label};
 use super::{
     Access, CONVENTIONS, DatasetSummary, PROGRAM_VERSION, Service, ServiceResult, now_utc,
 };
@@ -134,44 +138,62 @@ fn script_hash(body: &str) -> String {
 
 /// The drawing code of the report: reads the inlined data and draws each
 /// figure with the inlined plotting library.
-const DRAW_SCRIPT: &str = r#"
-(function () {
-  var data = JSON.parse(document.getElementById('report-data').textContent);
-  var layout = function (title, xt, yt, extra) {
-    var l = { title: { text: title }, margin: { l: 70, r: 20, t: 40, b: 55 },
-      xaxis: { title: { text: xt } }, yaxis: { title: { text: yt } }, font: { size: 14 } };
-    for (var k in extra) { l[k] = extra[k]; }
-    return l;
-  };
-  data.datasets.forEach(function (d) {
-    Plotly.newPlot('map-' + d.id, [{ type: 'heatmap', x: d.x, y: d.t, z: d.C,
-      colorscale: 'Cividis', colorbar: { title: { text: 'C' } } }],
-      layout('Space-time map', 'x (sites)', 't (' + d.time_unit + ')', {}), { staticPlot: true });
-    if (d.auto) {
-      Plotly.newPlot('auto-' + d.id, [{ x: d.auto.t, y: d.auto.C, mode: 'markers',
-        error_y: { type: 'data', array: d.auto.err, visible: d.auto.err !== null } }],
-        layout('Autocorrelation C(0,t)', 't', 'C(0,t)',
-          { xaxis: { type: 'log', title: { text: 't' } }, yaxis: { type: 'log', title: { text: 'C(0,t)' } } }),
-        { staticPlot: true });
+const DRAW_SCRIPT: &str = include_str!("report.js");
+
+/// The page around the report's tables and figures; `{{NAME}}` marks are
+/// filled in by [`Service::report`].
+const TEMPLATE: &str = include_str!("report.html");
+
+/// Significant digits kept for the numbers drawn in the report's figures
+/// (a figure cannot show more; the tables and the log keep full values).
+const FIGURE_DIGITS: i32 = 4;
+
+/// `value` with every number rounded to [`FIGURE_DIGITS`] significant
+/// digits, so the inlined data stay small.
+fn compact(value: &Value) -> Value {
+    match value {
+        Value::Number(n) if n.is_f64() => n.as_f64().map_or(Value::Null, |v| {
+            if v == 0.0 || !v.is_finite() {
+                return json!(v);
+            }
+            let scale = 10f64.powi(FIGURE_DIGITS - 1 - v.abs().log10().floor() as i32);
+            json!((v * scale).round() / scale)
+        }),
+        Value::Array(items) => Value::Array(items.iter().map(compact).collect()),
+        Value::Object(map) => {
+            Value::Object(map.iter().map(|(k, v)| (k.clone(), compact(v))).collect())
+        }
+        other => other.clone(),
     }
-    Plotly.newPlot('sum-' + d.id, [{ x: d.sum.t, y: d.sum.sum, mode: 'markers',
-      error_y: { type: 'data', array: d.sum.err, visible: d.sum.err !== null } }],
-      layout('Sum rule', 't', 'Σx C(x,t)', { shapes: [{ type: 'line', xref: 'paper', x0: 0, x1: 1,
-        y0: 1, y1: 1, line: { dash: 'dot' } }] }), { staticPlot: true });
-  });
-  var rows = data.comparison.filter(function (r) { return !r.retracted && r.z !== null && r.alpha !== null; });
-  if (rows.length > 0) {
-    var a = [], line = [];
-    for (var i = 0; i <= 60; i++) { var al = 0.5 + i * 0.025; a.push(al); line.push(Math.min(2 * al - 1, 2)); }
-    Plotly.newPlot('compare', [
-      { x: rows.map(function (r) { return r.alpha; }), y: rows.map(function (r) { return r.z; }),
-        error_y: { type: 'data', array: rows.map(function (r) { return r.z_err || 0; }) },
-        mode: 'markers', name: 'pinned z' },
-      { x: a, y: line, mode: 'lines', name: 'z = min(2α − 1, 2)' }],
-      layout('Pinned z versus nominal α', 'α', 'z', {}), { staticPlot: true });
-  }
-})();
-"#;
+}
+
+/// What the report draws for one pinned fit: the collapse at its z, its
+/// fitted C(0,t) law, and its model profiles at up to four times.
+fn fit_figure(entry: &LogEntry, fit: &Value) -> Value {
+    let profile = fit["overlay"].get("profile").map(|p| {
+        let t = p["t"].as_array().cloned().unwrap_or_default();
+        let n = t.len();
+        let picks: Vec<usize> = if n <= 4 {
+            (0..n).collect()
+        } else {
+            (0..4).map(|k| k * (n - 1) / 3).collect()
+        };
+        json!({
+            "x": p["x"],
+            "t": picks.iter().map(|&i| t[i].clone()).collect::<Vec<_>>(),
+            "C": picks.iter().map(|&i| p["C"][i].clone()).collect::<Vec<_>>(),
+        })
+    });
+    json!({
+        "entry": entry.id,
+        "dataset": entry.dataset,
+        "method": fit["method"],
+        "z": fit["parameters"]["z"]["value"],
+        "windows": fit["windows"],
+        "tail": fit["overlay"].get("tail"),
+        "profile": profile,
+    })
+}
 
 impl Service {
     /// Pinned z and D across the session's datasets.
@@ -269,10 +291,9 @@ impl Service {
         for e in &entries {
             let fit = e.fit.as_ref().map_or(String::new(), |f| {
                 format!(
-                    "<details><summary>{method}: {params}</summary><pre>{json}</pre></details>",
-                    method = escape(f["method"].as_str().unwrap_or("fit")),
+                    "{method}: {params}",
+                    method = escape(method_label(f["method"].as_str().unwrap_or("fit"))),
                     params = escape(&parameters_text(f)),
-                    json = escape(&serde_json::to_string_pretty(f).unwrap_or_default()),
                 )
             });
             log_rows.push_str(&format!(
@@ -307,33 +328,97 @@ impl Service {
                 name = escape(r.dataset_name.as_deref().unwrap_or("—")),
                 platform = escape(r.platform.as_deref().unwrap_or("—")),
                 alpha = r.alpha.map_or("—".into(), |a| a.to_string()),
-                method = escape(&r.method),
+                method = escape(method_label(&r.method)),
                 z = pm(r.z, r.z_err),
                 d = pm(r.d, r.d_err),
             ));
         }
-        let data = json!({"datasets": figures, "comparison": comparison});
+        let mut fits = Vec::new();
+        let mut fit_sections = String::new();
+        for e in &entries {
+            let Some(fit) = e.fit.as_ref().filter(|_| !retracted.contains(&e.id)) else {
+                continue;
+            };
+            if e.dataset
+                .is_none_or(|id| !summaries.iter().any(|s| s.id == id))
+            {
+                continue;
+            }
+            let figure = fit_figure(e, fit);
+            let mut divs = String::new();
+            for (kind, present) in [
+                ("collapse", figure["z"].is_number()),
+                ("tail", figure["tail"].is_object()),
+                ("profile", figure["profile"].is_object()),
+            ] {
+                if present {
+                    divs.push_str(&format!(
+                        "<div id=fit-{kind}-{id} class=fig></div>",
+                        id = e.id
+                    ));
+                }
+            }
+            if divs.is_empty() {
+                continue;
+            }
+            fit_sections.push_str(&format!(
+                "<div class=fit><h3>Entry {id}: {method} on {dataset}</h3><p>{params}</p>\
+                 <div class=figs>{divs}</div></div>",
+                id = e.id,
+                method = escape(method_label(fit["method"].as_str().unwrap_or("fit"))),
+                dataset = escape(e.dataset_name.as_deref().unwrap_or("—")),
+                params = escape(&parameters_text(fit)),
+            ));
+            fits.push(figure);
+        }
+        if fit_sections.is_empty() {
+            fit_sections.push_str("<p>No pinned fit with curves to draw.</p>");
+        }
+        let data = compact(&json!({"datasets": figures, "comparison": comparison, "fits": fits}));
         let scripts = [plotting_library, DRAW_SCRIPT];
         let script_hashes = scripts.iter().map(|s| script_hash(s)).collect();
-        let html = format!(
-            "<!doctype html><html lang=en><head><meta charset=utf-8>\
-             <title>{title} — spreadscope report</title><style>{STYLE}</style></head><body>\
-             <header><h1>{title}</h1><p>Report exported {now} by {PROGRAM_VERSION}.</p>\
-             <p class=conv>Conventions: {conv}</p></header>\
-             <h2>Pinned log</h2><table class=log><thead><tr><th>#</th><th>time (UTC)</th><th>author</th>\
-             <th>dataset</th><th>comment</th><th>result</th><th>program</th></tr></thead><tbody>{log_rows}</tbody></table>\
-             <h2>Comparison of pinned results</h2><table class=log><thead><tr><th>entry</th><th>dataset</th>\
-             <th>platform</th><th>nominal α</th><th>method</th><th>z</th><th>D</th></tr></thead>\
-             <tbody>{compare_rows}</tbody></table><div id=compare class=fig></div>\
-             <h2>Datasets</h2>{sections}\
-             <script id=report-data type=\"application/json\">{data}</script>\
-             <script>{lib}</script><script>{DRAW_SCRIPT}</script></body></html>",
-            title = escape(&access.session.name),
-            now = now_utc(),
-            conv = escape(CONVENTIONS),
-            data = inline_json(&data),
-            lib = plotting_library,
-        );
+        // Fill the marks in one pass, so text inserted for one mark is
+        // never searched for another.
+        let title = escape(&access.session.name);
+        let now = now_utc();
+        let conventions = escape(CONVENTIONS);
+        let data = inline_json(&data);
+        let fill = |mark: &str| -> Option<&str> {
+            Some(match mark {
+                "TITLE" => &title,
+                "NOW" => &now,
+                "VERSION" => PROGRAM_VERSION,
+                "CONVENTIONS" => &conventions,
+                "LOG_ROWS" => &log_rows,
+                "COMPARE_ROWS" => &compare_rows,
+                "FIT_SECTIONS" => &fit_sections,
+                "DATASET_SECTIONS" => &sections,
+                "DATA" => &data,
+                "LIBRARY" => plotting_library,
+                "DRAW" => DRAW_SCRIPT,
+                _ => return None,
+            })
+        };
+        let mut html = String::with_capacity(TEMPLATE.len() + plotting_library.len() + data.len());
+        let mut rest = TEMPLATE;
+        while let Some(start) = rest.find("{{") {
+            html.push_str(&rest[..start]);
+            let after = &rest[start + 2..];
+            match after
+                .find("}}")
+                .and_then(|end| Some((end, fill(&after[..end])?)))
+            {
+                Some((end, text)) => {
+                    html.push_str(text);
+                    rest = &after[end + 2..];
+                }
+                None => {
+                    html.push_str("{{");
+                    rest = after;
+                }
+            }
+        }
+        html.push_str(rest);
         Ok(Report {
             html,
             script_hashes,
@@ -372,13 +457,6 @@ fn parameters_text(fit: &Value) -> String {
         None => params,
     }
 }
-
-const STYLE: &str = "body{font:17px/1.45 system-ui,sans-serif;margin:2rem auto;max-width:1200px;\
-padding:0 1rem;color:#15171c}h1{margin-bottom:.2rem}table{border-collapse:collapse;margin:.5rem 0 1.5rem}\
-th,td{border:1px solid #c9ccd3;padding:.3rem .5rem;text-align:left;vertical-align:top}\
-.kv th{background:#f1f2f5}.log thead th{background:#f1f2f5}.retracted td{text-decoration:line-through;color:#777}\
-.figs{display:flex;flex-wrap:wrap;gap:1rem}.fig{width:560px;height:380px}.conv{font-size:.9rem;color:#444}\
-pre{white-space:pre-wrap;font-size:.8rem}section{border-top:2px solid #a3195b;margin-top:2rem}";
 
 #[cfg(test)]
 mod tests {

@@ -232,6 +232,18 @@ impl Store {
         Ok(rows.collect::<Result<_, _>>()?)
     }
 
+    /// Renames a session; `false` when no session has that id.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn rename_session(&self, id: i64, name: &str) -> StoreResult<bool> {
+        let changed = self.lock().execute(
+            "UPDATE sessions SET name = ?1 WHERE id = ?2",
+            params![name, id],
+        )?;
+        Ok(changed == 1)
+    }
+
     /// The session holding `token` as its edit or view token, with `true`
     /// when it is the edit token. The caller compares tokens in constant time
     /// afterwards; the index lookup only narrows the candidates.
