@@ -88,12 +88,24 @@ pub async fn shutdown_signal() {
 /// # Errors
 /// Database failure.
 pub async fn print_links(service: &Service, addr: SocketAddr) -> Result<(), String> {
+    print_links_with(service, "http", addr).await
+}
+
+/// Prints the links of every session with the given URL scheme.
+///
+/// # Errors
+/// Database failure.
+pub async fn print_links_with(
+    service: &Service,
+    scheme: &str,
+    addr: SocketAddr,
+) -> Result<(), String> {
     let sessions = service.sessions().await.map_err(|e| e.to_string())?;
-    println!("spreadscope serving at http://{addr}");
+    println!("spreadscope serving at {scheme}://{addr}");
     for s in sessions {
         println!("  session \"{}\"", s.name);
-        println!("    edit: http://{addr}/s/{}", s.edit_token);
-        println!("    view: http://{addr}/s/{}", s.view_token);
+        println!("    edit: {scheme}://{addr}/s/{}", s.edit_token);
+        println!("    view: {scheme}://{addr}/s/{}", s.view_token);
     }
     Ok(())
 }

@@ -37,6 +37,12 @@ pub enum Command {
     Simulate(crate::simulate::SimulateArgs),
     /// Create, list and rename the sessions of a data directory.
     Session(crate::session_cli::SessionArgs),
+    /// Send maps or shot files to a running server's session (safe to retry).
+    Push(crate::push::PushArgs),
+    /// Export a session as one archive file, or import one into a new session.
+    Archive(crate::archive::ArchiveArgs),
+    /// Copy the session database consistently while the server runs.
+    Backup(crate::backup::BackupArgs),
 }
 
 #[derive(Debug, clap::Args)]
@@ -53,6 +59,18 @@ pub struct ServeArgs {
     /// Largest accepted upload, in MiB.
     #[arg(long, default_value_t = 256)]
     pub max_upload_mb: usize,
+    /// Take files that appear in this directory into a session (see `--into`).
+    #[arg(long, requires = "into")]
+    pub watch: Option<PathBuf>,
+    /// The session the watched folder feeds: its edit link or edit token.
+    #[arg(long, requires = "watch")]
+    pub into: Option<String>,
+    /// Serve HTTPS with this PEM certificate (chain) …
+    #[arg(long, requires = "tls_key")]
+    pub tls_cert: Option<PathBuf>,
+    /// … and this PEM private key.
+    #[arg(long, requires = "tls_cert")]
+    pub tls_key: Option<PathBuf>,
 }
 
 /// A failure of a command, with the exit code it maps to.
@@ -73,6 +91,9 @@ pub fn run(cli: Cli) -> ExitCode {
         Command::Analyze(args) => crate::analyze::run(&args),
         Command::Correlate(args) => crate::correlate::run(&args),
         Command::Session(args) => crate::session_cli::run(&args),
+        Command::Push(args) => crate::push::run(&args),
+        Command::Archive(args) => crate::archive::run(&args),
+        Command::Backup(args) => crate::backup::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
@@ -97,6 +118,13 @@ fn serve(args: &ServeArgs) -> Result<(), CliError> {
         let app = App::open(&args.data, &api)
             .await
             .map_err(CliError::Failure)?;
+        let tls = match (&args.tls_cert, &args.tls_key) {
+            (Some(cert), Some(key)) => Some(crate::tls::load(cert, key).await.map_err(CliError::Input)?),
+            _ => None,
+        };
+        if let (Some(dir), Some(into)) = (&args.watch, &args.into) {
+            crate::watch::start(&app.service, dir, into).await?;
+        }
         let listener = tokio::net::TcpListener::bind(SocketAddr::new(args.bind, args.port))
             .await
             .map_err(|e| {
@@ -106,16 +134,31 @@ fn serve(args: &ServeArgs) -> Result<(), CliError> {
             .local_addr()
             .map_err(|e| CliError::Failure(e.to_string()))?;
         if !args.bind.is_loopback() {
-            eprintln!(
-                "spreadscope: WARNING: bound to {addr}, reachable from the network: \
-                 anyone holding a link below can read (view) or write (edit) that session."
-            );
+            if tls.is_some() {
+                eprintln!(
+                    "spreadscope: WARNING: bound to {addr}, reachable from the network: \
+                     anyone holding a link below can read (view) or write (edit) that session."
+                );
+            } else {
+                eprintln!(
+                    "spreadscope: WARNING: bound to {addr} without TLS: the links below, and \
+                     everything sent with them, can be read by anyone on the network; \
+                     anyone holding a link can read (view) or write (edit) that session. \
+                     Use --tls-cert and --tls-key on a shared network."
+                );
+            }
         }
-        app::print_links(&app.service, addr)
+        let scheme = if tls.is_some() { "https" } else { "http" };
+        app::print_links_with(&app.service, scheme, addr)
             .await
             .map_err(CliError::Failure)?;
-        app::serve(listener, app.router, app::shutdown_signal())
-            .await
-            .map_err(|e| CliError::Failure(e.to_string()))
+        match tls {
+            Some(config) => crate::tls::serve(listener, config, app.router, app::shutdown_signal())
+                .await
+                .map_err(|e| CliError::Failure(e.to_string())),
+            None => app::serve(listener, app.router, app::shutdown_signal())
+                .await
+                .map_err(|e| CliError::Failure(e.to_string())),
+        }
     })
 }

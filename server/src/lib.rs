@@ -6,14 +6,20 @@
 //! the pure core `spreadscope_physics` (numerics → model → fit).
 
 pub mod analyze;
+pub mod archive;
+pub mod backup;
 pub mod api;
 pub mod app;
 pub mod cli;
+pub mod client;
 pub mod correlate;
 pub mod dataset;
 pub mod ingest;
 pub mod loadcheck;
+pub mod push;
 pub mod service;
 pub mod session_cli;
 pub mod simulate;
 pub mod store;
+pub mod tls;
+pub mod watch;

@@ -5,6 +5,7 @@
 //! Handlers are thin: parse the request, call the service, shape the answer.
 
 pub mod assets;
+mod lab;
 
 use std::convert::Infallible;
 use std::time::Duration;
@@ -96,6 +97,11 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
         .route("/s/{token}/datasets/{id}/theory", post(run_theory))
         .route("/s/{token}/scaling-function", get(scaling_function))
         .route("/s/{token}/report.html", get(get_report))
+        .route("/s/{token}/archive", get(lab::export_archive))
+        .route(
+            "/archives",
+            post(lab::import_archive).layer(DefaultBodyLimit::max(config.max_upload_bytes)),
+        )
         .fallback(|| async { ApiError(ServiceError::NotFound) });
     Router::new()
         .route("/", get(home))
@@ -160,6 +166,10 @@ impl IntoResponse for ApiError {
                     .insert(header::RETRY_AFTER, HeaderValue::from(*seconds));
                 return response;
             }
+            ServiceError::StorageFull => (
+                StatusCode::INSUFFICIENT_STORAGE,
+                json!({"error": self.0.to_string()}),
+            ),
             ServiceError::Internal(msg) => {
                 eprintln!("spreadscope: internal error: {msg}");
                 (
@@ -305,11 +315,14 @@ struct UploadQuery {
     x: Option<String>,
     /// Times of a bare NPY array: a comma list or `T0:T1:COUNT`.
     t: Option<String>,
+    /// Idempotency key (also accepted as the `Idempotency-Key` header).
+    key: Option<String>,
 }
 
 async fn upload_dataset(
     State(service): State<Service>,
     Path(token): Path<String>,
+    headers: axum::http::HeaderMap,
     query: QueryResult<UploadQuery>,
     body: Bytes,
 ) -> ApiResult<Response> {
@@ -333,10 +346,11 @@ async fn upload_dataset(
             .transpose()
             .map_err(ServiceError::BadRequest)?,
     };
-    let summary = service
-        .add_dataset(&access, &name, format, body.to_vec(), options)
+    let key = lab::upload_key(&headers, query.key)?;
+    let uploaded = service
+        .add_dataset_keyed(&access, key, &name, format, body.to_vec(), options)
         .await?;
-    Ok((StatusCode::CREATED, Json(json!(summary))).into_response())
+    Ok(lab::uploaded_response(&uploaded))
 }
 
 /// The query of a shot upload. Listed field by field: query strings carry
@@ -357,11 +371,14 @@ struct ShotQuery {
     renormalise: bool,
     bootstrap: Option<usize>,
     seed: Option<u64>,
+    /// Idempotency key (also accepted as the `Idempotency-Key` header).
+    key: Option<String>,
 }
 
 async fn upload_shots(
     State(service): State<Service>,
     Path(token): Path<String>,
+    headers: axum::http::HeaderMap,
     query: QueryResult<ShotQuery>,
     body: Bytes,
 ) -> ApiResult<Response> {
@@ -381,10 +398,11 @@ async fn upload_shots(
         bootstrap: query.bootstrap,
         seed: query.seed,
     };
-    let summary = service
-        .add_shots(&access, &name, format, body.to_vec(), options)
+    let key = lab::upload_key(&headers, query.key)?;
+    let uploaded = service
+        .add_shots_keyed(&access, key, &name, format, body.to_vec(), options)
         .await?;
-    Ok((StatusCode::CREATED, Json(json!(summary))).into_response())
+    Ok(lab::uploaded_response(&uploaded))
 }
 
 #[derive(Debug, Deserialize)]
@@ -606,7 +624,8 @@ async fn run_fit(
 ) -> ApiResult<Json<Value>> {
     let access = service.access(&token).await?;
     let request: FitRequest = parse_json(&body, "fit request")?;
-    Ok(Json(json!(service.fit(&access, id, request).await?)))
+    // Identical requests share one computation and its cached result.
+    Ok(Json(json!(*service.fit_shared(&access, id, request).await?)))
 }
 
 #[derive(Debug, Deserialize)]

@@ -5,14 +5,18 @@
 //! a concurrency limit. Knows no HTTP: the api layer maps [`ServiceError`] to
 //! status codes. Talks to the database only through [`crate::store`].
 
+pub mod archive;
 mod demo;
 pub mod exports;
 pub mod fits;
+pub mod intake;
+pub mod jobs;
 pub mod log;
 pub mod quality;
 pub mod report;
 pub mod shots;
 pub mod theory;
+pub mod watch;
 
 use std::sync::Arc;
 use std::sync::atomic::{AtomicUsize, Ordering};
@@ -57,6 +61,10 @@ pub enum ServiceError {
     /// Too many heavy jobs are queued; try again after the given seconds.
     #[error("the server is busy with other computations; try again in {0} s")]
     Busy(u64),
+    /// The disk holding the database is full; nothing of the request was
+    /// stored and everything stored before is intact.
+    #[error("the server's disk is full: nothing of this request was stored; everything stored before is intact")]
+    StorageFull,
     /// Something on our side failed; the message is for the log only.
     #[error("internal error: {0}")]
     Internal(String),
@@ -64,7 +72,10 @@ pub enum ServiceError {
 
 impl From<StoreError> for ServiceError {
     fn from(e: StoreError) -> Self {
-        Self::Internal(e.to_string())
+        match e {
+            StoreError::Full => Self::StorageFull,
+            e => Self::Internal(e.to_string()),
+        }
     }
 }
 
@@ -158,6 +169,9 @@ impl DatasetSummary {
     }
 }
 
+/// Finished fit results kept for identical requests.
+const SHARED_FIT_CACHE: usize = 64;
+
 /// Limits and switches of the service.
 #[derive(Debug, Clone)]
 pub struct ServiceConfig {
@@ -186,6 +200,8 @@ pub struct Service {
     heavy_load: Arc<AtomicUsize>,
     heavy_limit: usize,
     jobs: Arc<fits::Jobs>,
+    /// Fits shared between identical requests, with their result cache.
+    shared_fits: Arc<jobs::SharedJobs<fits::FitResult>>,
     log_cache: Arc<log::LogCache>,
     quality_cache: Arc<quality::QualityCache>,
 }
@@ -201,6 +217,11 @@ impl Service {
             heavy_load: Arc::new(AtomicUsize::new(0)),
             heavy_limit: config.heavy_jobs.max(1) + config.heavy_queue,
             jobs: Arc::new(fits::Jobs::default()),
+            // Distinct fits in flight: one round running, one waiting.
+            shared_fits: Arc::new(jobs::SharedJobs::new(
+                2 * config.heavy_jobs.max(1),
+                SHARED_FIT_CACHE,
+            )),
             log_cache: Arc::new(log::LogCache::default()),
             quality_cache: Arc::new(quality::QualityCache::default()),
         }
@@ -501,11 +522,15 @@ impl Service {
     /// open page.
     async fn store_dataset(&self, d: StoredDataset) -> ServiceResult<DatasetSummary> {
         let session_id = d.session_id;
-        let (row, map) = self
+        // An upload under an idempotency key (or a watched-folder file)
+        // records its tag in the same transaction; see `intake`.
+        let intake = intake::current();
+        let tag = intake.as_ref().map(|i| i.tag.clone());
+        let (row, map, is_new) = self
             .db(move |s| {
                 let hash = content_hash(&d.map);
                 let created_at = now_utc();
-                let id = s.insert_dataset(&NewDataset {
+                let new = NewDataset {
                     session_id,
                     name: &d.name,
                     format: d.format,
@@ -515,13 +540,30 @@ impl Service {
                     notes: &d.notes,
                     map: &d.map,
                     shots: d.shots.as_ref().map(|(b, o)| (b.as_slice(), o.as_str())),
-                })?;
-                s.dataset(session_id, id)
+                };
+                let (id, is_new) = match &tag {
+                    None => (Some(s.insert_dataset(&new)?), true),
+                    Some(tag) => match s.insert_dataset_tagged(&new, tag)? {
+                        crate::store::Tagged::New(id) => (Some(id), true),
+                        crate::store::Tagged::Existing(id) => (id, false),
+                    },
+                };
+                let found = match id {
+                    Some(id) => s.dataset(session_id, id)?,
+                    None => None,
+                };
+                Ok(found.map(|(row, map)| (row, map, is_new)))
             })
             .await?
-            .ok_or_else(|| ServiceError::Internal("stored dataset vanished".into()))?;
+            .ok_or(ServiceError::NotFound)?;
         let summary = DatasetSummary::new(&row, &map);
-        self.publish(session_id, "dataset-added", summary.id);
+        if is_new {
+            self.publish(session_id, "dataset-added", summary.id);
+        } else if let Some(intake) = intake {
+            intake
+                .already
+                .store(true, std::sync::atomic::Ordering::SeqCst);
+        }
         Ok(summary)
     }
 }

@@ -16,18 +16,26 @@ use spreadscope_physics::CorrelationMap;
 
 use crate::dataset::DatasetMeta;
 
+mod lab;
+pub use lab::{DatasetDump, IngestTag, SessionDump, ShotDump, Tagged, backup_dir};
+
 /// Numbered migrations, applied in order; `PRAGMA user_version` records how
 /// many have run. Never edit a released migration: add a new one.
 const MIGRATIONS: &[&str] = &[
     include_str!("migrations/0001_init.sql"),
     include_str!("migrations/0002_log.sql"),
     include_str!("migrations/0003_shots.sql"),
+    include_str!("migrations/0004_lab.sql"),
 ];
 
 #[derive(Debug, thiserror::Error)]
 pub enum StoreError {
     #[error("database error: {0}")]
     Sqlite(#[from] rusqlite::Error),
+    /// The disk, or the database's page limit, is full; the write was
+    /// rolled back and everything stored before is intact.
+    #[error("the disk holding the database is full; nothing of this request was stored")]
+    Full,
     #[error("stored data are corrupt: {0}")]
     Corrupt(String),
     #[error("database at {path}: {source}")]
@@ -268,47 +276,10 @@ impl Store {
     /// # Errors
     /// Database failure; nothing is written then.
     pub fn insert_dataset(&self, d: &NewDataset<'_>) -> StoreResult<i64> {
-        let map = d.map;
-        let meta = serde_json::to_string(d.meta).map_err(|e| StoreError::Corrupt(e.to_string()))?;
-        let notes =
-            serde_json::to_string(d.notes).map_err(|e| StoreError::Corrupt(e.to_string()))?;
-        let offsets =
-            serde_json::to_string(map.offsets()).map_err(|e| StoreError::Corrupt(e.to_string()))?;
-        let times =
-            serde_json::to_string(map.times()).map_err(|e| StoreError::Corrupt(e.to_string()))?;
-        let values = f64_blob(map.values());
-        let errors = map.errors().map(f64_blob);
-        let mask: Vec<u8> = map.present().iter().map(|&p| u8::from(p)).collect();
         let mut conn = self.lock();
         let tx = conn.transaction()?;
-        tx.execute(
-            "INSERT INTO datasets (session_id, name, format, content_hash, created_at, meta_json,
-                 notes_json, offsets_json, times_json, values_blob, errors_blob, mask_blob)
-             VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
-            params![
-                d.session_id,
-                d.name,
-                d.format,
-                d.content_hash,
-                d.created_at,
-                meta,
-                notes,
-                offsets,
-                times,
-                values,
-                errors,
-                mask
-            ],
-        )?;
-        let id = tx.last_insert_rowid();
-        if let Some((bytes, options)) = d.shots {
-            tx.execute(
-                "INSERT INTO shot_files (session_id, dataset_id, name, format, bytes, estimator)
-                 VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-                params![d.session_id, id, d.name, d.format, bytes, options],
-            )?;
-        }
-        tx.commit()?;
+        let id = insert_dataset_in(&tx, d)?;
+        tx.commit().map_err(full_or)?;
         Ok(id)
     }
 
@@ -472,9 +443,10 @@ impl Store {
                 e.fit_json,
                 e.program_version
             ],
-        )?;
+        )
+        .map_err(full_or)?;
         let id = tx.last_insert_rowid();
-        tx.commit()?;
+        tx.commit().map_err(full_or)?;
         Ok(Ok(LogRow {
             id,
             created_at: e.created_at.into(),
@@ -528,6 +500,58 @@ impl Store {
         })?;
         Ok(rows.collect::<Result<_, _>>()?)
     }
+}
+
+/// Maps SQLite's "database or disk is full" to [`StoreError::Full`].
+fn full_or(e: rusqlite::Error) -> StoreError {
+    match e.sqlite_error_code() {
+        Some(rusqlite::ErrorCode::DiskFull) => StoreError::Full,
+        _ => StoreError::Sqlite(e),
+    }
+}
+
+/// Inserts a dataset (and its shot file) inside the caller's transaction.
+fn insert_dataset_in(tx: &rusqlite::Transaction<'_>, d: &NewDataset<'_>) -> StoreResult<i64> {
+    let map = d.map;
+    let meta = serde_json::to_string(d.meta).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+    let notes = serde_json::to_string(d.notes).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+    let offsets =
+        serde_json::to_string(map.offsets()).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+    let times =
+        serde_json::to_string(map.times()).map_err(|e| StoreError::Corrupt(e.to_string()))?;
+    let values = f64_blob(map.values());
+    let errors = map.errors().map(f64_blob);
+    let mask: Vec<u8> = map.present().iter().map(|&p| u8::from(p)).collect();
+    tx.execute(
+        "INSERT INTO datasets (session_id, name, format, content_hash, created_at, meta_json,
+             notes_json, offsets_json, times_json, values_blob, errors_blob, mask_blob)
+         VALUES (?1, ?2, ?3, ?4, ?5, ?6, ?7, ?8, ?9, ?10, ?11, ?12)",
+        params![
+            d.session_id,
+            d.name,
+            d.format,
+            d.content_hash,
+            d.created_at,
+            meta,
+            notes,
+            offsets,
+            times,
+            values,
+            errors,
+            mask
+        ],
+    )
+    .map_err(full_or)?;
+    let id = tx.last_insert_rowid();
+    if let Some((bytes, options)) = d.shots {
+        tx.execute(
+            "INSERT INTO shot_files (session_id, dataset_id, name, format, bytes, estimator)
+             VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
+            params![d.session_id, id, d.name, d.format, bytes, options],
+        )
+        .map_err(full_or)?;
+    }
+    Ok(id)
 }
 
 const DATASET_SELECT: &str = "SELECT id, session_id, name, format, content_hash, created_at,
