@@ -256,6 +256,17 @@ pub(super) fn assemble(
     CorrelationMap::new(xs, ts, values, errors, present).map_err(|e| e.to_string())
 }
 
+/// A bit value from an array: exactly 0 or 1.
+pub(super) fn bit_value(v: f64) -> Option<u8> {
+    if v.to_bits() == 0f64.to_bits() || v.to_bits() == (-0f64).to_bits() {
+        Some(0)
+    } else if v.to_bits() == 1f64.to_bits() {
+        Some(1)
+    } else {
+        None
+    }
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

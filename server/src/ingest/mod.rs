@@ -26,6 +26,7 @@
 pub mod couplings;
 mod csv;
 mod grid;
+mod hdf5;
 mod json;
 mod npy;
 pub mod shots;
@@ -85,8 +86,6 @@ impl Format {
     }
 }
 
-/// The NPY magic string (NumPy NEP 1, "A simple file format for NumPy arrays").
-const NPY_MAGIC: &[u8] = b"\x93NUMPY";
 /// The signature of a zip local file header (PKWARE APPNOTE.TXT 4.3.7), which
 /// opens every `.npz` archive written by NumPy.
 const ZIP_MAGIC: &[u8] = b"PK\x03\x04";
@@ -99,13 +98,13 @@ const BOM: &[u8] = b"\xEF\xBB\xBF";
 /// no format accepts.
 #[must_use]
 pub fn sniff(bytes: &[u8]) -> Option<Format> {
-    if bytes.starts_with(NPY_MAGIC) {
+    if bytes.starts_with(npy::NPY_MAGIC) {
         return Some(Format::Npy);
     }
     if bytes.starts_with(ZIP_MAGIC) {
         return Some(Format::Npz);
     }
-    if bytes.starts_with(b"\x89HDF\r\n\x1a\n") {
+    if bytes.starts_with(hdf5::HDF5_MAGIC) {
         return Some(Format::Hdf5);
     }
     let text = bytes.strip_prefix(BOM).unwrap_or(bytes);
@@ -203,7 +202,7 @@ pub fn parse(
         Format::Npz => npy::parse_npz(bytes)?,
         Format::Npy => npy::parse_npy(bytes, options)?,
         // The HDF5 reader needs an owned buffer: one copy of the upload.
-        Format::Hdf5 => shots::parse_hdf5_map(bytes.to_vec())?,
+        Format::Hdf5 => hdf5::parse_hdf5_map(bytes.to_vec())?,
     };
     if format != Format::Npy && (options.x.is_some() || options.t.is_some()) {
         ingested.notes.push(format!(

@@ -11,35 +11,114 @@
 //!   request ([`IngestOptions`]), and their absence is a problem naming the
 //!   request parameter.
 //!
-//! The `.npy` reader is written here over the byte slice (NumPy NEP 1, "A
-//! simple file format for NumPy arrays", versions 1.0–3.0) so that every
-//! length in a header is checked against the bytes actually present before
-//! anything is allocated: a forged header cannot make the server reserve
-//! memory it never received. Supported dtypes: float64/32, signed and
+//! This file is the one reader of NPY and NPZ containers, for correlation
+//! maps and shot records alike ([`read_view`], [`npz_views`]; the shot
+//! layouts use them from `shots`). It is written here over the byte slice
+//! (NumPy NEP 1, "A simple file format for NumPy arrays", versions 1.0–3.0)
+//! so that every length in a header is checked against the bytes actually
+//! present before anything is allocated: a forged header cannot make the
+//! server reserve memory it never received. This is security code: a fix to
+//! it lands once, for every caller. Supported dtypes: float64/32, signed and
 //! unsigned integers of 1–8 bytes, bool; either byte order; C or Fortran
-//! order. Problems name the array and index, never a line. Knows nothing of
-//! other formats, the file system or HTTP.
+//! order. Map members are copied out through the zip reader (its CRC check
+//! included) and capped at the largest permitted grid; shot members are read
+//! in place. Problems name the array and index, never a line. Knows nothing
+//! of the file system or HTTP.
 
 use std::io::{Cursor, Read};
 
 use super::grid::{self, Point};
-use super::{IngestError, IngestOptions, Ingested, NPY_MAGIC, Problems, Role};
+use super::{IngestError, IngestOptions, Ingested, Problems, Role};
 use crate::dataset::DatasetMeta;
 
-/// The most bytes read from one archive member: the largest permitted grid
-/// in float64 plus room for the header.
+/// The NPY magic string (NumPy NEP 1, "A simple file format for NumPy arrays").
+pub(super) const NPY_MAGIC: &[u8] = b"\x93NUMPY";
+
+/// The most bytes read from one archive member of a correlation map: the
+/// largest permitted grid in float64 plus room for the header.
 const MAX_MEMBER_BYTES: u64 = (grid::MAX_GRID_POINTS as u64) * 8 + (1 << 20);
 
 /// The element kinds of NumPy dtypes this reader decodes.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-enum Kind {
+pub(super) enum Kind {
     Float,
     Int,
     UInt,
     Bool,
 }
 
-/// A decoded array: every element as f64 (bool as 0/1), in file order.
+/// A checked `.npy` image: its header, and its data bytes in place. Every
+/// length in the header has been checked against the bytes present, so
+/// every index below `element_count()` is in the data.
+#[derive(Debug)]
+pub(super) struct NpyView<'a> {
+    pub(super) descr: String,
+    pub(super) kind: Kind,
+    size: usize,
+    big_endian: bool,
+    fortran: bool,
+    pub(super) shape: Vec<usize>,
+    data: &'a [u8],
+}
+
+impl<'a> NpyView<'a> {
+    /// Element `index` in memory order as f64 (a bool as its byte: 0 or 1
+    /// when well formed, so that another byte can still be reported).
+    /// Integers beyond 2^53 lose precision, which only matters for values
+    /// refused later anyway.
+    pub(super) fn at(&self, index: usize) -> Option<f64> {
+        let start = index.checked_mul(self.size)?;
+        let chunk = self.data.get(start..start.checked_add(self.size)?)?;
+        Some(decode(self.kind, self.size, self.big_endian, chunk))
+    }
+
+    /// Element `(i, j)` of a 2-D array in either memory order.
+    pub(super) fn at2(&self, i: usize, j: usize) -> Option<f64> {
+        let (rows, cols) = self.dim2()?;
+        if i >= rows || j >= cols {
+            return None;
+        }
+        self.at(if self.fortran {
+            j.checked_mul(rows)?.checked_add(i)?
+        } else {
+            i.checked_mul(cols)?.checked_add(j)?
+        })
+    }
+
+    /// The number of elements (the data hold exactly this many).
+    pub(super) fn element_count(&self) -> usize {
+        self.data.len() / self.size
+    }
+
+    /// `(rows, cols)` of a 2-D array.
+    pub(super) fn dim2(&self) -> Option<(usize, usize)> {
+        match self.shape.as_slice() {
+            [r, c] => Some((*r, *c)),
+            _ => None,
+        }
+    }
+
+    /// The length of a 1-D array.
+    pub(super) fn len1(&self) -> Option<usize> {
+        match self.shape.as_slice() {
+            [n] => Some(*n),
+            _ => None,
+        }
+    }
+
+    /// The rows `first..first + rows` of a C-ordered array of unsigned or
+    /// boolean bytes, in place; `None` for other layouts.
+    pub(super) fn byte_rows(&self, first: usize, rows: usize, cols: usize) -> Option<&'a [u8]> {
+        if self.size != 1 || self.fortran || !matches!(self.kind, Kind::UInt | Kind::Bool) {
+            return None;
+        }
+        let start = first.checked_mul(cols)?;
+        let end = first.checked_add(rows)?.checked_mul(cols)?;
+        self.data.get(start..end)
+    }
+}
+
+/// A decoded array: every element as f64 (a bool as its byte), in file order.
 #[derive(Debug)]
 struct NpyArray {
     descr: String,
@@ -50,6 +129,18 @@ struct NpyArray {
 }
 
 impl NpyArray {
+    fn decoded(view: &NpyView) -> Self {
+        Self {
+            descr: view.descr.clone(),
+            kind: view.kind,
+            shape: view.shape.clone(),
+            fortran: view.fortran,
+            data: (0..view.element_count())
+                .map(|k| view.at(k).unwrap_or(f64::NAN))
+                .collect(),
+        }
+    }
+
     /// Element `(i, j)` of a 2-D array in either memory order.
     fn at2(&self, i: usize, j: usize) -> Option<f64> {
         let (&rows, &cols) = (self.shape.first()?, self.shape.get(1)?);
@@ -232,7 +323,7 @@ fn bytes_of<const N: usize>(chunk: &[u8]) -> [u8; N] {
 }
 
 /// Decodes one element stored with `size` bytes in the given byte order.
-fn decode(kind: Kind, size: usize, big_endian: bool, chunk: &[u8]) -> f64 {
+pub(super) fn decode(kind: Kind, size: usize, big_endian: bool, chunk: &[u8]) -> f64 {
     // Bring the bytes to little-endian order, then read them natively.
     let mut le = [0u8; 8];
     for (o, b) in le.iter_mut().zip(chunk) {
@@ -250,11 +341,10 @@ fn decode(kind: Kind, size: usize, big_endian: bool, chunk: &[u8]) -> f64 {
         // Offsets and times beyond 2^53 lose precision here; such values
         // are refused later (offsets) or are far beyond any real time axis.
         (Kind::Int, _) => i64::from_le_bytes(bytes_of::<8>(&le)) as f64,
-        (Kind::UInt, 1) => f64::from(u8::from_le_bytes(bytes_of::<1>(&le))),
+        (Kind::UInt | Kind::Bool, 1) => f64::from(u8::from_le_bytes(bytes_of::<1>(&le))),
         (Kind::UInt, 2) => f64::from(u16::from_le_bytes(bytes_of::<2>(&le))),
         (Kind::UInt, 4) => f64::from(u32::from_le_bytes(bytes_of::<4>(&le))),
-        (Kind::UInt, _) => u64::from_le_bytes(bytes_of::<8>(&le)) as f64,
-        (Kind::Bool, _) => f64::from(u8::from(le[0] != 0)),
+        (Kind::UInt | Kind::Bool, _) => u64::from_le_bytes(bytes_of::<8>(&le)) as f64,
     }
 }
 
@@ -282,8 +372,11 @@ fn dtype(descr: &str) -> Option<(Kind, usize, bool)> {
     }
 }
 
-/// Reads one `.npy` image. The error is a sentence without the array's name.
-fn read_array(bytes: &[u8]) -> Result<NpyArray, String> {
+/// Reads one `.npy` image in place, checking every length in its header
+/// against the bytes present before anything is allocated. `max_elements`
+/// caps the element count when the caller will copy the data. The error
+/// is a sentence without the array's name.
+pub(super) fn read_view(bytes: &[u8], max_elements: Option<usize>) -> Result<NpyView<'_>, String> {
     let rest = bytes
         .strip_prefix(NPY_MAGIC)
         .ok_or("not an NPY array (the magic string \\x93NUMPY is missing)")?;
@@ -332,18 +425,20 @@ fn read_array(bytes: &[u8]) -> Result<NpyArray, String> {
     let (kind, size, big_endian) = dtype(&descr).ok_or_else(|| {
         format!("dtype `{descr}` is not supported (expected float64/32, an integer type or bool)")
     })?;
-    let elements = shape
-        .iter()
-        .try_fold(1usize, |n, &d| n.checked_mul(d))
-        .filter(|&n| n <= grid::MAX_GRID_POINTS)
-        .ok_or_else(|| {
-            format!(
-                "shape {shape:?} holds more than the {} elements allowed",
-                grid::MAX_GRID_POINTS
-            )
-        })?;
-    // `elements` ≤ 2^24 and `size` ≤ 8, so this cannot overflow.
-    let needed = elements * size;
+    let elements = shape.iter().try_fold(1usize, |n, &d| n.checked_mul(d));
+    let elements = match (elements, max_elements) {
+        (Some(n), Some(max)) if n <= max => n,
+        (_, Some(max)) => {
+            return Err(format!(
+                "shape {shape:?} holds more than the {max} elements allowed"
+            ));
+        }
+        (Some(n), None) => n,
+        (None, None) => return Err(format!("shape {shape:?} is too large")),
+    };
+    let needed = elements
+        .checked_mul(size)
+        .ok_or_else(|| format!("shape {shape:?} is too large"))?;
     if data.len() < needed {
         return Err(format!(
             "the data are truncated: {} bytes where shape {shape:?} of `{descr}` needs {needed}",
@@ -356,16 +451,121 @@ fn read_array(bytes: &[u8]) -> Result<NpyArray, String> {
             data.len() - needed
         ));
     }
-    let data = data
-        .chunks_exact(size)
-        .map(|chunk| decode(kind, size, big_endian, chunk))
-        .collect();
-    Ok(NpyArray {
+    Ok(NpyView {
         descr,
         kind,
-        shape,
+        size,
+        big_endian,
         fortran,
+        shape,
         data,
+    })
+}
+
+/// Reads one `.npy` image of a correlation map into memory (bounded by the
+/// largest permitted grid).
+fn read_array(bytes: &[u8]) -> Result<NpyArray, String> {
+    read_view(bytes, Some(grid::MAX_GRID_POINTS)).map(|view| NpyArray::decoded(&view))
+}
+
+// ------------------------------------------------------ NPZ archives -----
+
+/// The opening of an NPZ archive shared by maps and shots: every member is
+/// named by its stem (the name without `.npy`); members `wanted` refuses are
+/// returned as ignored (`` `stem` `` each); a compressed wanted member is a
+/// problem; `each` receives the open zip entry of every other member.
+fn npz_entries<'a>(
+    bytes: &'a [u8],
+    wanted: &dyn Fn(&str) -> bool,
+    problems: &mut Problems,
+    each: &mut dyn FnMut(&mut zip::read::ZipFile<'_, Cursor<&'a [u8]>>, String, &mut Problems),
+) -> Result<Vec<String>, String> {
+    let mut archive = zip::ZipArchive::new(Cursor::new(bytes))
+        .map_err(|e| format!("not a readable NPZ (zip) archive: {e}"))?;
+    let mut ignored = Vec::new();
+    for index in 0..archive.len() {
+        let mut entry = match archive.by_index(index) {
+            Ok(entry) => entry,
+            Err(e) => {
+                problems.general(format!("archive member {index} cannot be read: {e}"));
+                continue;
+            }
+        };
+        let name = entry.name().to_string();
+        let stem = name.strip_suffix(".npy").unwrap_or(&name).to_string();
+        if !wanted(&stem) {
+            ignored.push(format!("`{stem}`"));
+            continue;
+        }
+        if entry.compression() != zip::CompressionMethod::Stored {
+            problems.general(format!(
+                "array `{stem}` is compressed ({}); only uncompressed archives are read: \
+                 save with numpy.savez, not numpy.savez_compressed",
+                entry.compression()
+            ));
+            continue;
+        }
+        each(&mut entry, stem, problems);
+    }
+    Ok(ignored)
+}
+
+/// The members of an NPZ archive of a correlation map, each copied out
+/// through the zip reader (which checks its CRC) and bounded by the largest
+/// permitted grid, then read by [`read_array`]. Returns the ignored stems.
+fn npz_map_members(
+    bytes: &[u8],
+    wanted: &dyn Fn(&str) -> bool,
+    problems: &mut Problems,
+    each: &mut dyn FnMut(String, NpyArray, &mut Problems),
+) -> Result<Vec<String>, String> {
+    npz_entries(bytes, wanted, problems, &mut |entry, stem, problems| {
+        let mut buf = Vec::new();
+        if let Err(e) = entry
+            .by_ref()
+            .take(MAX_MEMBER_BYTES + 1)
+            .read_to_end(&mut buf)
+        {
+            problems.general(format!(
+                "array `{stem}` cannot be read from the archive: {e}"
+            ));
+            return;
+        }
+        if buf.len() as u64 > MAX_MEMBER_BYTES {
+            problems.general(format!(
+                "array `{stem}` is larger than the {} elements allowed",
+                grid::MAX_GRID_POINTS
+            ));
+            return;
+        }
+        match read_array(&buf) {
+            Ok(array) => each(stem, array, problems),
+            Err(reason) => problems.general(format!("array `{stem}`: {reason}")),
+        }
+    })
+}
+
+/// The members of an NPZ archive read in place, without a copy (shot
+/// archives, whose `meas` member may be far larger than any map), each
+/// checked by [`read_view`]. Returns the ignored stems.
+pub(super) fn npz_views<'a>(
+    bytes: &'a [u8],
+    wanted: &dyn Fn(&str) -> bool,
+    problems: &mut Problems,
+    each: &mut dyn FnMut(String, NpyView<'a>, &mut Problems),
+) -> Result<Vec<String>, String> {
+    npz_entries(bytes, wanted, problems, &mut |entry, stem, problems| {
+        // A stored member's data lie in place in the archive.
+        let start = usize::try_from(entry.data_start()).unwrap_or(usize::MAX);
+        let len = usize::try_from(entry.compressed_size()).unwrap_or(usize::MAX);
+        let Some(member) = start.checked_add(len).and_then(|end| bytes.get(start..end)) else {
+            problems.general(format!("array `{stem}` is truncated in the archive"));
+            return;
+        };
+        match read_view(member, None) {
+            Ok(view) => each(stem, view, problems),
+            Err(reason) => problems.general(format!("array `{stem}`: {reason}")),
+        }
     })
 }
 
@@ -576,66 +776,26 @@ fn into_error(reason: String) -> IngestError {
 /// Parses an NPZ archive. See the module documentation.
 pub(super) fn parse_npz(bytes: &[u8]) -> Result<Ingested, IngestError> {
     let mut problems = Problems::default();
-    let mut archive = zip::ZipArchive::new(Cursor::new(bytes))
-        .map_err(|e| into_error(format!("not a readable NPZ (zip) archive: {e}")))?;
     let mut slots: [Option<Named>; 5] = [None, None, None, None, None];
-    let mut ignored = Vec::new();
-    for index in 0..archive.len() {
-        let mut entry = match archive.by_index(index) {
-            Ok(entry) => entry,
-            Err(e) => {
-                problems.general(format!("archive member {index} cannot be read: {e}"));
-                continue;
+    let ignored = npz_map_members(
+        bytes,
+        &|stem| Member::of(stem).is_some(),
+        &mut problems,
+        &mut |stem, array, problems| {
+            let Some(member) = Member::of(&stem) else {
+                return;
+            };
+            match slots.get_mut(member.slot()) {
+                Some(Some(first)) => problems.general(format!(
+                    "arrays `{}` and `{stem}` play the same part; keep one",
+                    first.name
+                )),
+                Some(slot) => *slot = Some(Named { name: stem, array }),
+                None => {}
             }
-        };
-        let name = entry.name().to_string();
-        let stem = name.strip_suffix(".npy").unwrap_or(&name).to_string();
-        let Some(member) = Member::of(&stem) else {
-            ignored.push(format!("`{stem}`"));
-            continue;
-        };
-        if entry.compression() != zip::CompressionMethod::Stored {
-            problems.general(format!(
-                "array `{stem}` is compressed ({}); only uncompressed archives are read: \
-                 save with numpy.savez, not numpy.savez_compressed",
-                entry.compression()
-            ));
-            continue;
-        }
-        let mut buf = Vec::new();
-        if let Err(e) = entry
-            .by_ref()
-            .take(MAX_MEMBER_BYTES + 1)
-            .read_to_end(&mut buf)
-        {
-            problems.general(format!(
-                "array `{stem}` cannot be read from the archive: {e}"
-            ));
-            continue;
-        }
-        if buf.len() as u64 > MAX_MEMBER_BYTES {
-            problems.general(format!(
-                "array `{stem}` is larger than the {} elements allowed",
-                grid::MAX_GRID_POINTS
-            ));
-            continue;
-        }
-        let array = match read_array(&buf) {
-            Ok(array) => array,
-            Err(reason) => {
-                problems.general(format!("array `{stem}`: {reason}"));
-                continue;
-            }
-        };
-        match slots.get_mut(member.slot()) {
-            Some(Some(first)) => problems.general(format!(
-                "arrays `{}` and `{stem}` play the same part; keep one",
-                first.name
-            )),
-            Some(slot) => *slot = Some(Named { name: stem, array }),
-            None => {}
-        }
-    }
+        },
+    )
+    .map_err(into_error)?;
     let [x, t, c, err, mask] = slots;
     let mut notes = Vec::new();
     if !ignored.is_empty() {
@@ -799,6 +959,46 @@ mod tests {
         match parse_npz(bytes) {
             Ok(ingested) => panic!("expected refusal, got {:?}", ingested.map),
             Err(e) => e.problems,
+        }
+    }
+
+    #[test]
+    fn a_malformed_size_member_is_refused_identically_by_the_map_and_the_shot_reader() {
+        use std::io::Write;
+        // `t.npy` of shape (3,) and dtype `<f8` needs 3 × 8 = 24 data bytes
+        // after its header (NumPy NEP 1); one copy loses its last element's
+        // bytes, one carries 8 bytes too many.
+        let whole = npy(&Array1::from(vec![0.0f64, 1.0, 2.0]));
+        let short = whole
+            .get(..whole.len() - 8)
+            .expect("header and data")
+            .to_vec();
+        let long = [whole.as_slice(), &[0u8; 8]].concat();
+        for (member, expected) in [
+            (
+                short,
+                "array `t`: the data are truncated: 16 bytes where shape [3] of `<f8` needs 24",
+            ),
+            (
+                long,
+                "array `t`: 8 bytes follow the data that shape [3] of `<f8` describes",
+            ),
+        ] {
+            let mut zip = zip::ZipWriter::new(Cursor::new(Vec::new()));
+            let stored = zip::write::SimpleFileOptions::default()
+                .compression_method(zip::CompressionMethod::Stored);
+            zip.start_file("t.npy", stored).expect("member");
+            zip.write_all(&member).expect("write");
+            let bytes = zip.finish().expect("archive").into_inner();
+            let map = refuse_npz(&bytes);
+            let shots = match crate::ingest::shots::parse_npz(&bytes) {
+                Ok(ok) => panic!("expected refusal, got {:?}", ok.records),
+                Err(e) => e.problems,
+            };
+            let map_reasons = reasons(&map);
+            let shot_reasons = reasons(&shots);
+            assert_eq!(map_reasons.first(), Some(&expected), "{map_reasons:?}");
+            assert_eq!(shot_reasons.first(), Some(&expected), "{shot_reasons:?}");
         }
     }
 
