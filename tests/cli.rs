@@ -99,7 +99,7 @@ fn simulated_files_round_trip_bit_for_bit() {
 
 #[test]
 fn two_site_spin_chain_from_the_command_line_is_cos_squared() {
-    // C_11(t) = cos²(Jt), C_21(t) = sin²(Jt) for two sites (PHYSICS.md,
+    // C_11(t) = cos²(Jt), C_21(t) = sin²(Jt) for two sites (physics notes,
     // derivable by hand: the flip-flop term rotates |↑↓⟩ into |↓↑⟩).
     let map = simulate(&[
         "spin-chain",
@@ -124,7 +124,7 @@ fn two_site_spin_chain_from_the_command_line_is_cos_squared() {
 #[test]
 fn free_fermion_and_exact_paths_agree_for_a_nearest_neighbour_chain() {
     // Jordan–Wigner is exact for nearest-neighbour flip-flop chains
-    // (PHYSICS.md): the free-fermion shortcut and exact diagonalisation must
+    // (physics notes): the free-fermion shortcut and exact diagonalisation must
     // give the same map.
     let common = ["--sites", "8", "--times", "0.5:4:4"];
     let free = simulate(&[&["spin-chain"][..], &common, &["--method", "auto"]].concat());
@@ -322,7 +322,7 @@ fn correlate_refuses_bad_shots_and_bad_options_with_exit_2() {
 #[test]
 fn simulate_stable_samples_the_closed_forms() {
     // μ = 1: Cauchy s/(π(s² + x²)) with s = D t; μ = 2: Gaussian of
-    // variance 2Dt (DESIGN.md conventions, closed forms).
+    // variance 2Dt (physics notes conventions, closed forms).
     let cauchy = simulate(&[
         "stable",
         "--mu",

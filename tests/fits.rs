@@ -6,7 +6,7 @@ use serde_json::{Value, json};
 
 use crate::support::{app, new_session, send_json};
 
-/// Diffusive scaling data, closed form (DESIGN.md: z = 2 is a Gaussian of
+/// Diffusive scaling data, closed form (physics notes: z = 2 is a Gaussian of
 /// variance 2Dt): C(x,t) = exp(−x²/(4Dt)) / (2√(πDt)), D = 0.5, with a
 /// stated error of 1e-4 on every point and no noise.
 fn gaussian_csv() -> String {
@@ -283,7 +283,7 @@ async fn theory_overlays_use_the_dataset_metadata_and_give_residuals() {
 async fn the_scaling_function_is_the_stable_density_in_collapse_units() {
     let app = app().await;
     let (_, view) = new_session(&app.router).await;
-    // μ = 1: y(u) = s/(π(s² + u²)) with s = D (Cauchy, DESIGN.md: z = 1 is a
+    // μ = 1: y(u) = s/(π(s² + u²)) with s = D (Cauchy, the physics notes: z = 1 is a
     // Lorentzian of half-width Dt, so D t^{…} scale s = D at unit time).
     let (status, f) = send_json(
         &app.router,

@@ -101,11 +101,7 @@ pub fn run(args: &ArchiveArgs) -> Result<(), CliError> {
                 .read_to_string()
                 .map_err(|e| CliError::Failure(format!("reading the answer: {e}")))?;
             if status != 201 {
-                return Err(client::refusal(
-                    &file.display().to_string(),
-                    status,
-                    &body,
-                ));
+                return Err(client::refusal(&file.display().to_string(), status, &body));
             }
             let answer: serde_json::Value = serde_json::from_str(&body)
                 .map_err(|e| CliError::Failure(format!("answer: {e}")))?;
@@ -113,8 +109,14 @@ pub fn run(args: &ArchiveArgs) -> Result<(), CliError> {
                 "imported {} datasets and {} log entries into a new session",
                 answer["datasets"], answer["log_entries"]
             );
-            println!("  edit: {base}{}", answer["edit_url"].as_str().unwrap_or_default());
-            println!("  view: {base}{}", answer["view_url"].as_str().unwrap_or_default());
+            println!(
+                "  edit: {base}{}",
+                answer["edit_url"].as_str().unwrap_or_default()
+            );
+            println!(
+                "  view: {base}{}",
+                answer["view_url"].as_str().unwrap_or_default()
+            );
             Ok(())
         }
     }

@@ -43,17 +43,20 @@ pub fn run(args: &BackupArgs) -> Result<(), CliError> {
     }
     match crate::store::backup_dir(&args.data, &args.out) {
         Ok(()) => {
-            println!("{}: consistent copy of {}", args.out.display(), args.data.display());
+            println!(
+                "{}: consistent copy of {}",
+                args.out.display(),
+                args.data.display()
+            );
             Ok(())
         }
         Err(e) => {
             // Leave no half-written copy that could be mistaken for a backup.
             let _ = std::fs::remove_file(&args.out);
             Err(match e {
-                StoreError::Full => CliError::Failure(format!(
-                    "--out {}: the disk is full",
-                    args.out.display()
-                )),
+                StoreError::Full => {
+                    CliError::Failure(format!("--out {}: the disk is full", args.out.display()))
+                }
                 e => CliError::Failure(format!("backup: {e}")),
             })
         }

@@ -119,7 +119,9 @@ fn serve(args: &ServeArgs) -> Result<(), CliError> {
             .await
             .map_err(CliError::Failure)?;
         let tls = match (&args.tls_cert, &args.tls_key) {
-            (Some(cert), Some(key)) => Some(crate::tls::load(cert, key).await.map_err(CliError::Input)?),
+            (Some(cert), Some(key)) => {
+                Some(crate::tls::load(cert, key).await.map_err(CliError::Input)?)
+            }
             _ => None,
         };
         if let (Some(dir), Some(into)) = (&args.watch, &args.into) {

@@ -6,10 +6,10 @@
 //! the pure core `spreadscope_physics` (numerics → model → fit).
 
 pub mod analyze;
-pub mod archive;
-pub mod backup;
 pub mod api;
 pub mod app;
+pub mod archive;
+pub mod backup;
 pub mod cli;
 pub mod client;
 pub mod correlate;

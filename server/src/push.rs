@@ -65,14 +65,20 @@ pub fn push_key(name: &str, bytes: &[u8]) -> String {
 ///
 /// # Errors
 /// A pair without `=` or a field that does not exist or does not fit.
-pub fn meta_patch(pairs: &[String]) -> Result<serde_json::Map<String, serde_json::Value>, CliError> {
+pub fn meta_patch(
+    pairs: &[String],
+) -> Result<serde_json::Map<String, serde_json::Value>, CliError> {
     let mut patch = serde_json::Map::new();
     for pair in pairs {
         let (key, value) = pair
             .split_once('=')
             .ok_or_else(|| CliError::Input(format!("--meta `{pair}`: expected KEY=VALUE")))?;
         let value = match serde_json::from_str::<serde_json::Value>(value) {
-            Ok(v @ (serde_json::Value::Number(_) | serde_json::Value::Bool(_) | serde_json::Value::Null)) => v,
+            Ok(
+                v @ (serde_json::Value::Number(_)
+                | serde_json::Value::Bool(_)
+                | serde_json::Value::Null),
+            ) => v,
             _ => serde_json::Value::String(value.to_string()),
         };
         patch.insert(key.trim().to_string(), value);
@@ -175,7 +181,9 @@ fn upload(
             Err(e) => {
                 last = e.to_string();
                 if attempt < args.attempts {
-                    eprintln!("spreadscope: {shown}: {e}; trying again (same key: stored at most once)");
+                    eprintln!(
+                        "spreadscope: {shown}: {e}; trying again (same key: stored at most once)"
+                    );
                     std::thread::sleep(Duration::from_secs(u64::from(attempt)));
                 }
             }
@@ -194,7 +202,9 @@ fn set_meta(
 ) -> Result<(), CliError> {
     let mut meta = summary["meta"].clone();
     let Some(object) = meta.as_object_mut() else {
-        return Err(CliError::Failure(format!("{shown}: the answer has no metadata")));
+        return Err(CliError::Failure(format!(
+            "{shown}: the answer has no metadata"
+        )));
     };
     for (k, v) in patch {
         object.insert(k.clone(), v.clone());
@@ -222,9 +232,18 @@ mod tests {
         let patch = meta_patch(&["alpha=1.5".into(), "platform=ion chain".into()]).expect("valid");
         assert_eq!(patch["alpha"], serde_json::json!(1.5));
         assert_eq!(patch["platform"], serde_json::json!("ion chain"));
-        assert!(matches!(meta_patch(&["colour=red".into()]), Err(CliError::Input(_))));
-        assert!(matches!(meta_patch(&["alpha".into()]), Err(CliError::Input(_))));
-        assert!(matches!(meta_patch(&["alpha=-1".into()]), Err(CliError::Input(_))));
+        assert!(matches!(
+            meta_patch(&["colour=red".into()]),
+            Err(CliError::Input(_))
+        ));
+        assert!(matches!(
+            meta_patch(&["alpha".into()]),
+            Err(CliError::Input(_))
+        ));
+        assert!(matches!(
+            meta_patch(&["alpha=-1".into()]),
+            Err(CliError::Input(_))
+        ));
     }
 
     #[test]

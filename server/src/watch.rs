@@ -24,7 +24,9 @@ pub async fn start(service: &Service, dir: &Path, into: &str) -> Result<(), CliE
         None => into,
     };
     let access = service.access(token).await.map_err(|_| {
-        CliError::Input(format!("--into `{into}`: no session of this server has that link"))
+        CliError::Input(format!(
+            "--into `{into}`: no session of this server has that link"
+        ))
     })?;
     if !access.can_edit {
         return Err(CliError::Input(format!(

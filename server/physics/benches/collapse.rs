@@ -1,5 +1,5 @@
 //! Benchmark of the collapse quality S(z) on the size the dashboard's
-//! collapse slider works with: 101 sites × 60 times (DESIGN.md, performance
+//! collapse slider works with: 101 sites × 60 times (DEVELOPERS.md, performance
 //! targets). Target: one evaluation ≤ 5 ms. Plain timing loop (no harness):
 //! `cargo bench -p spreadscope-physics --bench collapse`.
 

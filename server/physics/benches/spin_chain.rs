@@ -1,5 +1,5 @@
 //! Benchmark of the spin-chain typicality solver against the performance
-//! targets of DESIGN.md: N = 20, α = 1, 50 times up to t = 10 within 60 s on
+//! targets in DEVELOPERS.md: N = 20, α = 1, 50 times up to t = 10 within 60 s on
 //! 2 cores and 2 GiB; N = 16 at least 10× faster than a scipy
 //! `expm_multiply` script doing the same estimate.
 //!

@@ -3,13 +3,13 @@
 
 use std::f64::consts::PI;
 
-/// Diffusive profile, closed form (DESIGN.md: z = 2 is a Gaussian of
+/// Diffusive profile, closed form (physics notes: z = 2 is a Gaussian of
 /// variance 2Dt): exp(−x²/(4Dt)) / (2√(πDt)).
 pub fn gaussian(x: f64, t: f64, d: f64) -> f64 {
     (-x * x / (4.0 * d * t)).exp() / (2.0 * (PI * d * t).sqrt())
 }
 
-/// Lévy flight at μ = 1, closed form (DESIGN.md: z = 1 is a Lorentzian of
+/// Lévy flight at μ = 1, closed form (physics notes: z = 1 is a Lorentzian of
 /// half-width Dt): Dt / (π((Dt)² + x²)).
 pub fn cauchy(x: f64, t: f64, d: f64) -> f64 {
     d * t / (PI * ((d * t).powi(2) + x * x))

@@ -3,11 +3,11 @@
 //! whether an upload was new (201) or already there (200), and session
 //! archives (download; import into a new session).
 
+use axum::Json;
 use axum::body::Bytes;
 use axum::extract::{Path, State};
 use axum::http::{HeaderMap, HeaderValue, StatusCode, header};
 use axum::response::{IntoResponse, Response};
-use axum::Json;
 use serde_json::json;
 
 use super::ApiResult;

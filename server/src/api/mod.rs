@@ -625,7 +625,9 @@ async fn run_fit(
     let access = service.access(&token).await?;
     let request: FitRequest = parse_json(&body, "fit request")?;
     // Identical requests share one computation and its cached result.
-    Ok(Json(json!(*service.fit_shared(&access, id, request).await?)))
+    Ok(Json(json!(
+        *service.fit_shared(&access, id, request).await?
+    )))
 }
 
 #[derive(Debug, Deserialize)]

@@ -8,7 +8,7 @@
 //! Layout: N rows of N numbers, row i holding J_i0 … J_i(N−1) in the
 //! convention H = Σ_{i<j} J_ij (σ⁺_i σ⁻_j + h.c. + …) (single-particle
 //! hopping K_ij = J_ij; a matrix written for J(SˣSˣ + SʸSʸ) must be halved,
-//! PHYSICS.md). Cells are separated by `,`, tab, `;` or white space (the
+//! the physics notes). Cells are separated by `,`, tab, `;` or white space (the
 //! first row decides); `#` starts a comment line; blank lines are skipped.
 //! A first row without any number is a header and is skipped; a first row
 //! whose first cell is empty (as `pandas.DataFrame.to_csv` writes it) is a

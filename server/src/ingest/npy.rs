@@ -474,11 +474,14 @@ fn read_array(bytes: &[u8]) -> Result<NpyArray, String> {
 /// named by its stem (the name without `.npy`); members `wanted` refuses are
 /// returned as ignored (`` `stem` `` each); a compressed wanted member is a
 /// problem; `each` receives the open zip entry of every other member.
+/// An open member of an NPZ archive held in memory.
+type NpzMember<'z, 'a> = zip::read::ZipFile<'z, Cursor<&'a [u8]>>;
+
 fn npz_entries<'a>(
     bytes: &'a [u8],
     wanted: &dyn Fn(&str) -> bool,
     problems: &mut Problems,
-    each: &mut dyn FnMut(&mut zip::read::ZipFile<'_, Cursor<&'a [u8]>>, String, &mut Problems),
+    each: &mut dyn FnMut(&mut NpzMember<'_, 'a>, String, &mut Problems),
 ) -> Result<Vec<String>, String> {
     let mut archive = zip::ZipArchive::new(Cursor::new(bytes))
         .map_err(|e| format!("not a readable NPZ (zip) archive: {e}"))?;

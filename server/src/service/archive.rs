@@ -243,7 +243,11 @@ fn read_archive(bytes: &[u8]) -> ServiceResult<SessionDump> {
                 estimator: s.estimator,
             }),
             (None, None) => None,
-            _ => return Err(refused(format!("{what}: shot file and its description disagree"))),
+            _ => {
+                return Err(refused(format!(
+                    "{what}: shot file and its description disagree"
+                )));
+            }
         };
         let dump = DatasetDump {
             id: part.id,

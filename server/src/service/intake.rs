@@ -4,7 +4,7 @@
 //! that is already there.
 //!
 //! The key travels to the one place that writes datasets
-//! ([`Service::store_dataset`]) as a task-local value around the upload
+//! (`Service::store_dataset`) as a task-local value around the upload
 //! call, so every kind of upload (maps, shot files, watched-folder files)
 //! gets it without each use case threading an extra argument through.
 //!
@@ -79,10 +79,7 @@ impl Service {
         access.require_edit()?;
         let session_id = access.session.id;
         let probe = tag.clone();
-        if let Some(existing) = self
-            .db(move |s| s.tag_recorded(session_id, &probe))
-            .await?
-        {
+        if let Some(existing) = self.db(move |s| s.tag_recorded(session_id, &probe)).await? {
             let id = existing.ok_or(ServiceError::NotFound)?;
             let (summary, _) = self.dataset(access, id).await?;
             return Ok(Uploaded {
@@ -135,7 +132,12 @@ impl Service {
         self.keyed(access, key, work).await
     }
 
-    async fn keyed<F>(&self, access: &Access, key: Option<String>, work: F) -> ServiceResult<Uploaded>
+    async fn keyed<F>(
+        &self,
+        access: &Access,
+        key: Option<String>,
+        work: F,
+    ) -> ServiceResult<Uploaded>
     where
         F: Future<Output = ServiceResult<DatasetSummary>>,
     {

@@ -396,10 +396,19 @@ mod tests {
             tokio::task::yield_now().await;
         }
         let other = jobs.run("b".into(), async { Ok(2) }, || {}).await;
-        assert!(matches!(other, Err(ServiceError::Busy(s)) if s >= 1), "{other:?}");
+        assert!(
+            matches!(other, Err(ServiceError::Busy(s)) if s >= 1),
+            "{other:?}"
+        );
         gate.notify_one();
         assert_eq!(*first.await.expect("joins").expect("ok"), 1);
-        assert_eq!(*jobs.run("b".into(), async { Ok(2) }, || {}).await.expect("free"), 2);
+        assert_eq!(
+            *jobs
+                .run("b".into(), async { Ok(2) }, || {})
+                .await
+                .expect("free"),
+            2
+        );
     }
 
     #[tokio::test]

@@ -63,7 +63,9 @@ pub enum ServiceError {
     Busy(u64),
     /// The disk holding the database is full; nothing of the request was
     /// stored and everything stored before is intact.
-    #[error("the server's disk is full: nothing of this request was stored; everything stored before is intact")]
+    #[error(
+        "the server's disk is full: nothing of this request was stored; everything stored before is intact"
+    )]
     StorageFull,
     /// Something on our side failed; the message is for the log only.
     #[error("internal error: {0}")]

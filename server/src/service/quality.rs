@@ -47,7 +47,7 @@ impl Key {
     }
 }
 
-/// Most recently used last; at most [`CAPACITY`] entries.
+/// Most recently used last; at most `CAPACITY` entries.
 #[derive(Debug, Default)]
 pub struct QualityCache {
     entries: Mutex<VecDeque<(Key, Arc<CollapseQuality>)>>,

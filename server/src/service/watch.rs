@@ -101,7 +101,9 @@ impl Service {
                         match self.take_in(&access, &dir.join(&name), &name, size).await {
                             Ok(Some(outcome)) => {
                                 if let WatchOutcome::Refused(_) = outcome {
-                                    eprintln!("spreadscope: watched folder: {name} refused (see the session log)");
+                                    eprintln!(
+                                        "spreadscope: watched folder: {name} refused (see the session log)"
+                                    );
                                 }
                                 done.insert(name.clone(), (size, modified));
                             }
@@ -110,7 +112,9 @@ impl Service {
                                 seen.remove(&name);
                             }
                             Err(e) => {
-                                eprintln!("spreadscope: watched folder: {name}: {e}; will try again");
+                                eprintln!(
+                                    "spreadscope: watched folder: {name}: {e}; will try again"
+                                );
                             }
                         }
                     }

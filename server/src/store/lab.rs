@@ -128,7 +128,14 @@ impl Store {
             IngestTag::Watched { name, size, sha256 } => tx.execute(
                 "INSERT INTO watched_files (session_id, name, size, sha256, dataset_id, seen_at)
                  VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-                params![d.session_id, name, sql_size(*size), sha256, id, d.created_at],
+                params![
+                    d.session_id,
+                    name,
+                    sql_size(*size),
+                    sha256,
+                    id,
+                    d.created_at
+                ],
             ),
         }
         .map_err(full_or)?;
@@ -141,7 +148,11 @@ impl Store {
     ///
     /// # Errors
     /// Database failure.
-    pub fn tag_recorded(&self, session_id: i64, tag: &IngestTag) -> StoreResult<Option<Option<i64>>> {
+    pub fn tag_recorded(
+        &self,
+        session_id: i64,
+        tag: &IngestTag,
+    ) -> StoreResult<Option<Option<i64>>> {
         let conn = self.read();
         tag_lookup(&conn, session_id, tag)
     }
@@ -181,7 +192,14 @@ impl Store {
         tx.execute(
             "INSERT INTO watched_files (session_id, name, size, sha256, log_id, seen_at)
              VALUES (?1, ?2, ?3, ?4, ?5, ?6)",
-            params![session_id, name, sql_size(*size), sha256, log_id, entry.created_at],
+            params![
+                session_id,
+                name,
+                sql_size(*size),
+                sha256,
+                log_id,
+                entry.created_at
+            ],
         )
         .map_err(full_or)?;
         tx.commit().map_err(full_or)?;
@@ -325,13 +343,19 @@ impl Store {
         for e in &dump.log {
             let dataset_id = match e.dataset_id {
                 Some(old) => Some(*dataset_ids.get(&old).ok_or_else(|| {
-                    StoreError::Corrupt(format!("log entry {}: dataset {old} is not in the archive", e.id))
+                    StoreError::Corrupt(format!(
+                        "log entry {}: dataset {old} is not in the archive",
+                        e.id
+                    ))
                 })?),
                 None => None,
             };
             let retracts = match e.retracts {
                 Some(old) => Some(*entry_ids.get(&old).ok_or_else(|| {
-                    StoreError::Corrupt(format!("log entry {}: retracted entry {old} is not earlier in the archive", e.id))
+                    StoreError::Corrupt(format!(
+                        "log entry {}: retracted entry {old} is not earlier in the archive",
+                        e.id
+                    ))
                 })?),
                 None => None,
             };
@@ -367,11 +391,9 @@ impl Store {
     /// Database failure.
     pub fn limit_pages(&self, pages: u64) -> StoreResult<u64> {
         let conn = self.lock();
-        let limit: i64 = conn.query_row(
-            &format!("PRAGMA max_page_count = {pages}"),
-            [],
-            |r| r.get(0),
-        )?;
+        let limit: i64 = conn.query_row(&format!("PRAGMA max_page_count = {pages}"), [], |r| {
+            r.get(0)
+        })?;
         Ok(u64::try_from(limit).unwrap_or(0))
     }
 
@@ -427,7 +449,9 @@ pub fn backup_dir(dir: &Path, out: &Path) -> StoreResult<()> {
     target.pragma_update(None, "journal_mode", "DELETE")?;
     let answer: String = target.query_row("PRAGMA integrity_check", [], |r| r.get(0))?;
     if answer != "ok" {
-        return Err(StoreError::Corrupt(format!("the copy fails its check: {answer}")));
+        return Err(StoreError::Corrupt(format!(
+            "the copy fails its check: {answer}"
+        )));
     }
     Ok(())
 }

@@ -1665,7 +1665,7 @@ mod tests {
     fn diffusive_data_give_consistent_estimates_and_json_keys() {
         // Closed-form Gaussian (D = 0.5, z = 2) on 61 offsets, times 1–20,
         // noise 1e-4: every z estimate near 2, the Gaussian profile preferred,
-        // and the JSON carries the keys DESIGN.md promises.
+        // and the JSON carries the keys the README promises.
         let x: Vec<i32> = (-30..=30).collect();
         let times = log_times(1.0, 20.0, 12);
         let mut rng = seeded_rng(4);

@@ -16,7 +16,7 @@
 //! One exponent scales both axes, as the sum rule Σ_x C = 1 demands: the
 //! area under y(u) is then the same for every curve. Fitting separate
 //! exponents for the two axes would let an unweighted measure be minimised
-//! by shrinking every curve (PHYSICS.md, "Scaling-collapse quality").
+//! by shrinking every curve (physics notes, "Scaling-collapse quality").
 //!
 //! For every point (i, j) (curve i, point j) the neighbourhood is built from
 //! every *other* curve i' whose u-range contains u_ij: from each such curve
@@ -31,7 +31,7 @@
 //! S(z) = (1/N) Σ (y_ij − Y_ij)²/(dy_ij² + dY_ij²),
 //! summed over the N points that have a non-empty neighbourhood; S = +∞
 //! when no point has one. This is the measure of Houdayer & Hartmann as
-//! described in PHYSICS.md; the neighbourhood rule (nearest neighbours on
+//! described in the physics notes; the neighbourhood rule (nearest neighbours on
 //! each side from every other curve, points without partners excluded) is
 //! as remembered from their paper, not checked against it. S ≈ 1 for a
 //! collapse consistent with the errors, S = 0 for exact data whose scaling

@@ -61,7 +61,7 @@ pub const EDGE_FRACTION: f64 = 0.05;
 pub const EDGE_ZONE: f64 = 0.1;
 /// |α − 3/2| below this (or below two of its standard deviations) is near
 /// the crossover: corrections decay like |k|^{|2α−3|}, i.e. no faster than
-/// |k|^0.3 within the band (PHYSICS.md, lattice walk).
+/// |k|^0.3 within the band (physics notes, lattice walk).
 pub const CROSSOVER_BAND: f64 = 0.15;
 /// Smallest departure of Σ_x C from 1 worth a warning when it is also
 /// beyond 3 of its standard deviations (2 %: the size of typical readout

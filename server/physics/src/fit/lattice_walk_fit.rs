@@ -9,7 +9,7 @@
 //!
 //! # The model
 //! dP_i/dt = Σ_{j≠i} γ_ij (P_j − P_i), γ_ij = γ0 |i−j|^{−2α}, P_i(0) =
-//! δ_{i,source} on N sites (DESIGN.md, "Classical lattice walk"); the map is
+//! δ_{i,source} on N sites (physics notes, "Classical lattice walk"); the map is
 //! compared as C(x,t) = P_{source+x}(t). Unlike a scaling form it holds at
 //! all times and feels the chain's ends, so it can be fitted to data whose
 //! spread has reached the edges, where tail and profile fits fail.
@@ -708,7 +708,7 @@ mod tests {
             (report.gamma0 - 0.8).abs() < 2.5 * report.gamma0_err,
             "{report:?}"
         );
-        // z = 2α − 1 = 1.4 for α < 3/2 (DESIGN.md, "Classical lattice walk").
+        // z = 2α − 1 = 1.4 for α < 3/2 (physics notes, "Classical lattice walk").
         assert!(close(report.z, 2.0 * report.alpha - 1.0, 1e-15, 0.0));
         assert!(report.chi2_dof > 0.7 && report.chi2_dof < 1.3, "{report:?}");
         assert!(report.eigendecompositions < 60, "{report:?}");

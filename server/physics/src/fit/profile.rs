@@ -10,7 +10,7 @@
 //! a windowed [`CorrelationMap`]) nor how the stable density is computed
 //! (that is [`StableDensity`]'s business).
 //!
-//! # Conventions (DESIGN.md, "Scaling form")
+//! # Conventions (physics notes, "Scaling form")
 //! Σ_x C(x,t) e^{ikx} ≈ exp(−D|k|^μ t), so s(t) = (Dt)^(1/μ) and f_μ is the
 //! symmetric stable density of characteristic function exp(−|k|^μ): μ = 2 is
 //! the Gaussian exp(−x²/(4Dt))/(2√(πDt)) of variance 2Dt, μ = 1 the
@@ -305,7 +305,7 @@ impl ProfileData {
         self.y.len()
     }
 
-    /// D from C(0,t) = f_μ(0)/(Dt)^(1/μ), f_μ(0) = Γ(1 + 1/μ)/π (PHYSICS.md),
+    /// D from C(0,t) = f_μ(0)/(Dt)^(1/μ), f_μ(0) = Γ(1 + 1/μ)/π (physics notes),
     /// the median over the times with a positive C(0,t); `None` without.
     fn d_from_peak(&self, mu: f64) -> Option<f64> {
         let f0 = puruspe::gamma(1.0 + 1.0 / mu) / PI;
@@ -1307,7 +1307,7 @@ mod tests {
     #[test]
     fn table_reproduces_closed_form_densities() {
         // Against the closed forms at μ = 1, 1/(π(1+u²)), and μ = 2,
-        // exp(−u²/4)/(2√π) (PHYSICS.md), at points between the nodes:
+        // exp(−u²/4)/(2√π) (physics notes), at points between the nodes:
         // error ≤ 3e-6 of f plus 1e-8 of the peak (the Gaussian's far tail,
         // f < 1e-5 f(0), is interpolated to ~u²·1e-8 relative).
         let cauchy_unit = UnitDensity {

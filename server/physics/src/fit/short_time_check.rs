@@ -7,10 +7,10 @@
 //! how the couplings were designed or measured (they arrive as
 //! [`Couplings`]) nor anything about late-time transport.
 //!
-//! # The law (PHYSICS.md, "Short-time expansion, any couplings")
+//! # The law (physics notes, "Short-time expansion, any couplings")
 //! C_ii(t) = 1 − t² Σ_{b≠i} K_ib² + O(t⁴), C_ij(t) = t² K_ij² + O(t⁴), odd
 //! orders vanishing, for every Ising anisotropy; K_ij = J_ij in spreadscope's
-//! convention (DESIGN.md). So the curvature of C(0,t) measures the total
+//! convention (physics notes, "Conventions"). So the curvature of C(0,t) measures the total
 //! squared coupling of the source and that of C(±1,t) the nearest-neighbour
 //! coupling.
 //!
@@ -18,7 +18,7 @@
 //! C(0,t) = c0 + c2 t² [+ c4 t⁴] and C(x,t) = d2 t² [+ d4 t⁴] for x = ±1,
 //! by weighted linear least squares (the crate's Levenberg–Marquardt engine
 //! with the analytic Jacobian; one step). The intercept c0 is free: a
-//! readout error scales every C by about (1 − 2e)² (PHYSICS.md), so the
+//! readout error scales every C by about (1 − 2e)² (physics notes), so the
 //! couplings are read from the *normalised* curvatures
 //! Σ_b K_0b² = −c2/c0 and K_{0,x}² = d2/c0, errors by first-order
 //! propagation with the covariance of (c0, c2). Keeping the t⁴ term reduces
@@ -386,7 +386,7 @@ mod tests {
     use ndarray::Array2;
 
     /// Σ_{b≠j} |b − j|^{−2α} over a chain of `sites` sites: the closed form
-    /// of Σ_b K_jb² for K = 1/r^α (PHYSICS.md, short-time expansion).
+    /// of Σ_b K_jb² for K = 1/r^α (physics notes, short-time expansion).
     fn power_law_square_sum(sites: usize, source: usize, alpha: f64) -> f64 {
         (0..sites)
             .filter(|&b| b != source)

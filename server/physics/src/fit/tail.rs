@@ -8,7 +8,7 @@
 //!
 //! Under the scaling form C(x,t) ≈ (Dt)^(−1/z) f_z(x/(Dt)^(1/z)) the return
 //! probability is C(0,t) = f_z(0) (Dt)^(−1/z): a straight line of slope −1/z
-//! on log-log axes (DESIGN.md, "Scaling form"). The fit is a weighted least
+//! on log-log axes (physics notes, "Scaling form"). The fit is a weighted least
 //! squares fit of ln C = ln A − (1/z) ln t in log space, with the errors
 //! propagated to first order, δ ln C = δC/C. Points with C ≤ 0 (which occur
 //! in interacting chains and in noisy data) have no logarithm: they are

@@ -8,7 +8,7 @@
 //! # Why a quantile width and never the variance
 //! For a Lévy flight (stable index μ < 2, i.e. z < 2) the mean-square
 //! displacement is infinite: Σ x² C(x,t) is set by the chain length, not by
-//! the dynamics, and its growth exponent means nothing (PHYSICS.md,
+//! the dynamics, and its growth exponent means nothing (physics notes,
 //! "Conventions and their traps"). A quantile width exists for every μ and,
 //! under the scaling form C(x,t) = (Dt)^(−1/z) f(x/(Dt)^(1/z)), grows exactly
 //! as (Dt)^(1/z). So this module never computes a variance.

@@ -198,7 +198,7 @@ mod tests {
 
     #[test]
     fn infinite_chain_sum_rules() {
-        // Σ_n J_n(z)² = 1 (A&S 9.1.76) and Σ_n n² J_n(z)² = z²/2 (PHYSICS.md,
+        // Σ_n J_n(z)² = 1 (A&S 9.1.76) and Σ_n n² J_n(z)² = z²/2 (physics notes,
         // ballistic spreading), z = 2Jt.
         for (t, j) in [(0.25, 1.0), (1.5, 1.0), (5.0, 1.0), (3.0, 0.6)] {
             let z: f64 = 2.0 * j * t;
@@ -222,7 +222,7 @@ mod tests {
     #[test]
     fn finite_chain_bulk_matches_bessel_squares() {
         // Far from the ends (50 sites away, amplitude ~ (Jt)^50/50!) the
-        // open chain is the infinite one: C = J_n(2Jt)² (PHYSICS.md, Free
+        // open chain is the infinite one: C = J_n(2Jt)² (physics notes, Free
         // fermions).
         for coupling in [1.0, 0.7] {
             let c = Couplings::power_law(101, coupling, f64::INFINITY).expect("valid");
@@ -243,7 +243,7 @@ mod tests {
 
     #[test]
     fn two_sites_oscillate() {
-        // C_11 = cos²(Jt), C_12 = sin²(Jt) (PHYSICS.md, Short-time expansion).
+        // C_11 = cos²(Jt), C_12 = sin²(Jt) (physics notes, Short-time expansion).
         let c = Couplings::power_law(2, 1.3, 1.0).expect("valid");
         let chain = FreeFermionChain::new(&c).expect("diagonalises");
         let times = [0.0, 0.4, 1.1, 7.0];
@@ -287,7 +287,7 @@ mod tests {
         // Nearest neighbours: |U|² and the spin expansion agree through t⁴, so
         // their difference at small t is O(t⁶). Power-law couplings (α = 1):
         // they agree at t² only; the t⁴ terms differ by the string effect
-        // (PHYSICS.md, Free fermions).
+        // (physics notes, Free fermions).
         let t = 0.02;
         for (alpha, agrees_at_t4) in [(f64::INFINITY, true), (1.0, false)] {
             let c = Couplings::power_law(9, 1.0, alpha).expect("valid");

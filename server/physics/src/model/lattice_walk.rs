@@ -945,7 +945,7 @@ mod tests {
                 );
             }
         }
-        // D = π²/6 at α = 2 (PHYSICS.md; ζ(2), A&S 23.2.24).
+        // D = π²/6 at α = 2 (physics notes; ζ(2), A&S 23.2.24).
         let w2 = InfiniteLatticeWalk::new(1.0, 2.0).expect("valid");
         assert!(close(
             w2.diffusion_coefficient().expect("diffusive"),
@@ -963,7 +963,7 @@ mod tests {
 
     #[test]
     fn dynamical_exponent_is_min_of_two_alpha_minus_one_and_two() {
-        // z = min(2α − 1, 2) (PHYSICS.md, Transport classes).
+        // z = min(2α − 1, 2) (physics notes, Transport classes).
         for (alpha, z) in [(0.75, 0.5), (1.0, 1.0), (1.25, 1.5), (2.0, 2.0), (3.0, 2.0)] {
             let w = InfiniteLatticeWalk::new(1.0, alpha).expect("valid");
             assert!((w.dynamical_exponent() - z).abs() < 1e-15);

@@ -338,7 +338,7 @@ mod tests {
     #[test]
     fn two_sites_follow_cos_squared() {
         // Two sites: C_11 = cos²(Jt) = 1 − J²t² + J⁴t⁴/3 − …,
-        // C_12 = sin²(Jt) (PHYSICS.md, Short-time expansion; Taylor series of
+        // C_12 = sin²(Jt) (physics notes, Short-time expansion; Taylor series of
         // cos 2x, A&S 4.3.66).
         let c = Couplings::power_law(2, 0.9, 1.0).expect("valid");
         for delta in [0.0, 2.0] {
@@ -354,7 +354,7 @@ mod tests {
 
     #[test]
     fn sum_rule_holds_order_by_order() {
-        // Σ_i C_ij(t) = 1 at every order (U(1) symmetry, PHYSICS.md).
+        // Σ_i C_ij(t) = 1 at every order (U(1) symmetry, the physics notes).
         let mut rng = ChaCha8Rng::seed_from_u64(3);
         let n = 30;
         let mut m = Array2::zeros((n, n));
@@ -388,7 +388,7 @@ mod tests {
     #[test]
     fn bulk_autocorrelation_matches_zeta() {
         // Infinite power-law chain: C(0,t) = 1 − 2ζ(2α) J² t² + …
-        // (PHYSICS.md); at α = 1 this is 1 − (π²/3) t² (ζ(2) = π²/6, A&S
+        // (physics notes); at α = 1 this is 1 − (π²/3) t² (ζ(2) = π²/6, A&S
         // 23.2.24). A 2001-site chain misses 2 Σ_{r>1000} r^{−2α} ≤
         // 2·1000^{1−2α}/(2α−1) of it.
         let n = 2001;

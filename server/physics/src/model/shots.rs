@@ -59,7 +59,7 @@
 //! # Errors: bootstrap over initial states
 //! Shots of one state share that state and are not independent draws of the
 //! ensemble; the spread of f_i(s) over states usually dominates the error
-//! (a single run's s_j m_i has variance 1 − C², PHYSICS.md). The error bars
+//! (a single run's s_j m_i has variance 1 − C², the physics notes). The error bars
 //! therefore come from resampling the states with replacement (Efron &
 //! Tibshirani, "An Introduction to the Bootstrap", 1993, ch. 6), with one
 //! draw shared by all times so that correlations between times and pairs are
@@ -94,7 +94,7 @@
 //! connected covariance the offset a cancels exactly, so the corrected
 //! estimate is Ĉ_ij / b_i, and uncorrected data are scaled by
 //! b_i = 1 − p01 − p10 (1 − 2e for a symmetric error e).
-//! The rule of thumb "(1 − 2e)²" (PHYSICS.md, common practice) holds when the
+//! The rule of thumb "(1 − 2e)²" (physics notes, common practice) holds when the
 //! recorded initial bits are also wrong with probability e (symmetric
 //! preparation error): with recorded bits r and true bits s,
 //! E[r_j | s] = (1 − 2e) s_j, so Cov(f_i(s), r_j) = (1 − 2e) C_ij as well.
@@ -1402,7 +1402,7 @@ mod tests {
     }
 
     /// Free fermions (Jordan–Wigner, exact for nearest neighbours;
-    /// PHYSICS.md): C_ij(t) = |U_ij(t)|², U = exp(−iKt), K the hopping
+    /// the physics notes): C_ij(t) = |U_ij(t)|², U = exp(−iKt), K the hopping
     /// matrix, here from the eigendecomposition of K.
     fn free_fermion(t: f64) -> Array2<f64> {
         let k = Array2::from_shape_fn((N, N), |(i, j)| if i.abs_diff(j) == 1 { 1.0 } else { 0.0 });
@@ -1525,7 +1525,7 @@ mod tests {
 
     #[test]
     fn estimator_agrees_with_free_fermions_within_its_errors() {
-        // Truth: C_ij(t) = |U_ij(t)|² (Jordan–Wigner, PHYSICS.md), shots
+        // Truth: C_ij(t) = |U_ij(t)|² (Jordan–Wigner, the physics notes), shots
         // sampled from exact many-body dynamics. Calibration: χ² per point
         // near 1 and 1σ coverage near 68.3 % (common practice). The 500
         // points share states and are correlated, so one data set's χ² per
@@ -1545,7 +1545,7 @@ mod tests {
             estimate.shots_per_time,
             vec![(STATES * SHOTS) as u64; TIMES.len()]
         );
-        // The sum rule holds within its errors (U(1), PHYSICS.md).
+        // The sum rule holds within its errors (U(1), the physics notes).
         for s in &estimate.sum_rule {
             assert!(!s.departs, "{s:?}");
         }
@@ -1659,7 +1659,7 @@ mod tests {
     #[test]
     fn preparation_and_readout_error_give_the_squared_factor_and_time_zero_calibration_undoes_it() {
         // Symmetric preparation and readout error e = 0.05: uncorrected C is
-        // scaled by (1 − 2e)² = 0.81 (PHYSICS.md, common practice).
+        // scaled by (1 − 2e)² = 0.81 (physics notes, common practice).
         let e = 0.05;
         let shots = records(Noise {
             p01: e,

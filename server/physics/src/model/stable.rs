@@ -1888,7 +1888,7 @@ mod tests {
                 "mu {mu} x {x}"
             );
         }
-        // Conventions (PHYSICS.md): μ = 2 has variance 2s², so f(0) = 1/(2s√π);
+        // Conventions (physics notes): μ = 2 has variance 2s², so f(0) = 1/(2s√π);
         // μ = 1 has half-width s, so f(s) = f(0)/2.
         let g = StableDensity::new(2.0, 0.7).unwrap();
         assert!(close(g.pdf(0.0), 1.0 / (2.0 * 0.7 * PI.sqrt()), 1e-15, 0.0));
@@ -1925,7 +1925,7 @@ mod tests {
     fn neighbours_of_one_and_two_approach_the_closed_forms() {
         // The general machinery (ε-expansion, series, Nolan grid) just off μ = 1
         // and μ = 2 must reproduce the Cauchy density 1/(π(1 + x²)) and the
-        // Gaussian e^{−x²/4}/(2√π) (PHYSICS.md) up to the O(Δμ · ln x) change of
+        // Gaussian e^{−x²/4}/(2√π) (physics notes) up to the O(Δμ · ln x) change of
         // the function itself.
         for mu in [1.0 - 1e-12, 1.0 + 1e-12] {
             let d = density(mu);
@@ -1962,7 +1962,7 @@ mod tests {
 
     #[test]
     fn density_at_origin_is_gamma_formula() {
-        // f(0) = Γ(1 + 1/μ)/(π s) (PHYSICS.md; Zolotarev 1986 §2.4).
+        // f(0) = Γ(1 + 1/μ)/(π s) (physics notes; Zolotarev 1986 §2.4).
         for &mu in &[
             0.3, 0.5, 0.77, 0.999_999, 1.0, 1.000_001, 1.3, 1.7, 1.99, 2.0,
         ] {
@@ -1978,7 +1978,7 @@ mod tests {
 
     #[test]
     fn tail_constant_is_reached_at_one_million() {
-        // x^{1+μ} f(x) → c_μ = Γ(1+μ) sin(πμ/2)/π (PHYSICS.md; Feller II §XVII.6).
+        // x^{1+μ} f(x) → c_μ = Γ(1+μ) sin(πμ/2)/π (physics notes; Feller II §XVII.6).
         // The next term of the tail expansion is −Γ(2μ+1) sin(πμ)/(2π) x^{−2μ−1},
         // so the ratio differs from 1 by about |Γ(2μ+1) sin(πμ)/(2Γ(1+μ) sin(πμ/2))| x^{−μ}.
         let x: f64 = 1e6;
@@ -2173,7 +2173,7 @@ mod tests {
     #[test]
     fn log_pdf_reaches_far_tails_without_underflow() {
         // μ = 1.5 at x = 1e200: f underflows; ln f = ln c_μ − (1 + μ) ln x + O(x^{−μ})
-        // with c_μ = Γ(1+μ) sin(πμ/2)/π (PHYSICS.md tail constant).
+        // with c_μ = Γ(1+μ) sin(πμ/2)/π (physics notes tail constant).
         let x: f64 = 1e200;
         let d = density(1.5);
         assert!(close(d.pdf(x), 0.0, 0.0, 0.0));

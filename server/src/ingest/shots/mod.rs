@@ -6,7 +6,7 @@
 //! A file with any problem is rejected whole, with at most
 //! [`MAX_PROBLEMS`](super::MAX_PROBLEMS) problems listed.
 //!
-//! Layouts (bit 1 = spin up, site 0 first; see `DESIGN.md`):
+//! Layouts (bit 1 = spin up, site 0 first; see the README's command-line section):
 //! - CSV: columns `state_id,t,init_bits,meas_bits`, one shot per row, any
 //!   number of shots per (state, time), rows in any order. The header is
 //!   optional (without it the columns are in this order); with it, columns may
@@ -14,7 +14,7 @@
 //!   comment line; blank lines are skipped; `,`, tab or `;` delimit (the
 //!   first line decides). Bits are strings of `0`/`1` of one length, the
 //!   chain length, fixed by the first data row. The input is read line by
-//!   line from any [`BufRead`]: memory is that of the per-(state, time)
+//!   line from any [`BufRead`](std::io::BufRead): memory is that of the per-(state, time)
 //!   counters (and the state names), never that of the text.
 //! - NPZ (`numpy.savez`, uncompressed): `init` (states × sites), `meas`
 //!   (shots × sites), `state` (per shot, the row of `init`), `t` (per shot).

@@ -187,7 +187,7 @@ mod tests {
     /// |[exp(−i h t)]_ij|² for a real symmetric single-particle hopping
     /// matrix h, from its own eigendecomposition h = W diag(ε) Wᵀ: the
     /// Jordan–Wigner free-fermion result for nearest-neighbour flip-flop
-    /// chains (PHYSICS.md, "Free fermions"). A separate computation from the
+    /// chains (physics notes, "Free fermions"). A separate computation from the
     /// many-body one: N × N instead of 2^N.
     fn free_fermion_propagator_squared(hopping: &Array2<f64>, t: f64) -> Array2<f64> {
         let eig = symmetric_eigen(hopping).expect("converges");
@@ -205,7 +205,7 @@ mod tests {
 
     #[test]
     fn two_sites_oscillate_as_cos_and_sin_squared() {
-        // PHYSICS.md "Two sites": C_11 = cos²(Jt), C_12 = sin²(Jt); the Ising
+        // the physics notes "Two sites": C_11 = cos²(Jt), C_12 = sin²(Jt); the Ising
         // term shifts both one-up states equally, so Δ does not enter
         // (derivable from the 2 × 2 sector Hamiltonian).
         let j = 0.7;
@@ -230,7 +230,7 @@ mod tests {
     fn nearest_neighbour_xy_equals_free_fermions() {
         // Jordan–Wigner is exact for nearest-neighbour flip-flop chains with
         // any (here random, seeded) bond strengths: C_ij(t) = |[e^{−iht}]_ij|²
-        // (PHYSICS.md, "Free fermions").
+        // (physics notes, "Free fermions").
         let mut rng = ChaCha8Rng::seed_from_u64(11);
         for sites in [8usize, 10, 12] {
             let mut hopping = Array2::<f64>::zeros((sites, sites));
@@ -263,7 +263,7 @@ mod tests {
 
     #[test]
     fn bulk_of_a_uniform_chain_follows_bessel_squares_at_short_times() {
-        // Infinite uniform chain: C(n, t) = J_n(2Jt)² (PHYSICS.md; A&S 9.1).
+        // Infinite uniform chain: C(n, t) = J_n(2Jt)² (physics notes; A&S 9.1).
         // On the open chain of N sites the method of images (eigenfunctions
         // sin(k(i+1)), k = πm/(N+1)) writes U_ij as J_{i−j}(2Jt) up to a phase
         // minus image terms of orders i+j+2, 2N−i−j and 2(N+1)−|i−j|, so
@@ -294,7 +294,7 @@ mod tests {
     #[test]
     fn sum_rule_and_symmetries_hold_for_power_law_xxz() {
         // Σ_i C_ij = 1 (U(1) symmetry), C_ij = C_ji, and C_ij = C_{N−1−i,N−1−j}
-        // for a uniform open chain (PHYSICS.md, "Transport classes").
+        // for a uniform open chain (physics notes, "Transport classes").
         let sites = 10;
         let chain =
             SpinChain::new(&Couplings::power_law(sites, 1.0, 1.2).unwrap(), 0.6).expect("valid");
@@ -323,7 +323,7 @@ mod tests {
     #[test]
     fn short_times_follow_the_t_squared_law_for_power_law_couplings() {
         // C_ii = 1 − t² Σ_b J_ib² + O(t⁴), C_ij = t² J_ij² + O(t⁴), independent
-        // of Δ (PHYSICS.md, "Short-time expansion", nested commutators). At
+        // of Δ (physics notes, "Short-time expansion", nested commutators). At
         // t = 1e-3 the t⁴ term is ~1e-12 relative to the t² term's 1e-6.
         let sites = 9;
         let couplings = Couplings::power_law(sites, 1.0, 1.5).unwrap();
