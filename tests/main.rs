@@ -8,6 +8,7 @@ mod cli;
 mod crash;
 mod exports;
 mod fits;
+mod lab;
 mod load;
 mod parsers_prop;
 mod support;

@@ -101,9 +101,15 @@ pub struct Server {
 
 impl Server {
     pub fn start(data: &Path) -> Self {
+        Self::start_with(data, &[])
+    }
+
+    /// Like [`Server::start`], with more `serve` options.
+    pub fn start_with(data: &Path, extra: &[&std::ffi::OsStr]) -> Self {
         let mut child = Command::new(env!("CARGO_BIN_EXE_spreadscope"))
             .args(["serve", "--port", "0", "--data"])
             .arg(data)
+            .args(extra)
             .stdout(Stdio::piped())
             .stderr(Stdio::inherit())
             .spawn()
@@ -113,7 +119,7 @@ impl Server {
         let first = lines.next().expect("a line").expect("utf-8");
         let base = first
             .split_whitespace()
-            .find(|w| w.starts_with("http://"))
+            .find(|w| w.starts_with("http://") || w.starts_with("https://"))
             .expect("serving line names the URL")
             .to_string();
         let mut links = Vec::new();
