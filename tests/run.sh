@@ -1,7 +1,7 @@
 #!/usr/bin/env bash
 # Every check spreadscope has, on a fresh Debian machine or a developer's one:
-# installs what is missing (Debian's chromium for the browser test, the node
-# modules for the front-end type check and the browser driver), then runs the
+# installs what is missing (Debian's chromium for the browser test, openssl
+# for the HTTPS test, the node modules for the front-end type check and the browser driver), then runs the
 # front-end type check, rustfmt, clippy, rustdoc and all tests including the
 # browser test. Works as root and as a user with sudo. `.ci/run` calls exactly
 # this script; the README gives it as the test command.
@@ -23,6 +23,11 @@ if [ ! -x /usr/bin/chromium ]; then
   echo "== install: Debian's chromium (browser test)"
   as_root env DEBIAN_FRONTEND=noninteractive apt-get update -qq
   as_root env DEBIAN_FRONTEND=noninteractive apt-get install -y -qq chromium >/dev/null
+fi
+if ! command -v openssl >/dev/null 2>&1; then
+  echo "== install: openssl (the HTTPS test makes a self-signed pair with it)"
+  as_root env DEBIAN_FRONTEND=noninteractive apt-get update -qq
+  as_root env DEBIAN_FRONTEND=noninteractive apt-get install -y -qq openssl >/dev/null
 fi
 if [ ! -d tests/browser/node_modules/playwright-core ] || [ ! -d tests/browser/node_modules/typescript ]; then
   echo "== install: node modules (playwright-core, typescript)"
