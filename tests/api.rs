@@ -347,14 +347,9 @@ async fn the_log_keeps_order_provenance_and_retractions() {
 #[tokio::test]
 async fn open_pages_hear_of_new_pins_through_server_sent_events() {
     use http_body_util::BodyExt;
-    use tower::ServiceExt;
     let app = app().await;
     let (edit, view) = new_session(&app.router).await;
-    let request = axum::http::Request::builder()
-        .uri(format!("/api/s/{view}/events"))
-        .body(axum::body::Body::empty())
-        .expect("request");
-    let response = app.router.clone().oneshot(request).await.expect("answers");
+    let response = crate::support::open_events(&app.router, &view).await;
     assert_eq!(response.status(), StatusCode::OK);
     assert!(
         response.headers()["content-type"]

@@ -1,16 +1,12 @@
 //! The command line as scripts use it: exit codes and outputs.
 
-use std::process::Command;
-
 use spreadscope::ingest::{self, Format, IngestOptions};
 
-fn spreadscope() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_spreadscope"))
-}
+use crate::support::binary;
 
 #[test]
 fn unknown_options_exit_2() {
-    let out = spreadscope()
+    let out = binary()
         .args(["serve", "--no-such-flag"])
         .output()
         .expect("runs");
@@ -34,7 +30,7 @@ fn simulate_refuses_bad_options_with_exit_2_naming_the_option() {
             "--alpha",
         ),
     ] {
-        let out = spreadscope()
+        let out = binary()
             .args(["simulate", "lattice-walk"])
             .args(&args)
             .arg("--out")
@@ -52,7 +48,7 @@ fn simulate_refuses_bad_options_with_exit_2_naming_the_option() {
 fn simulate(args: &[&str]) -> spreadscope_physics::CorrelationMap {
     let dir = tempfile::tempdir().expect("temp dir");
     let path = dir.path().join("sim.csv");
-    let out = spreadscope()
+    let out = binary()
         .arg("simulate")
         .args(args)
         .arg("--out")
@@ -147,7 +143,7 @@ fn analyze_refuses_every_bad_corpus_file_with_exit_2_naming_the_file() {
         let cols: Vec<&str> = row.split('\t').collect();
         let (file, line) = (cols[0], cols[1]);
         let path = crate::support::repo_path(&format!("tests/data/bad/{file}"));
-        let out = spreadscope()
+        let out = binary()
             .args(["analyze", "--bootstrap", "0"])
             .arg(&path)
             .output()
@@ -170,7 +166,7 @@ fn analyze_refuses_every_bad_corpus_file_with_exit_2_naming_the_file() {
 fn analyze_json_has_the_documented_keys() {
     let dir = tempfile::tempdir().expect("temp dir");
     let path = dir.path().join("walk.csv");
-    let made = spreadscope()
+    let made = binary()
         .args([
             "simulate",
             "lattice-walk",
@@ -186,7 +182,7 @@ fn analyze_json_has_the_documented_keys() {
         .output()
         .expect("runs");
     assert!(made.status.success());
-    let out = spreadscope()
+    let out = binary()
         .args(["analyze", "--json", "--bootstrap", "0", "--sites", "61"])
         .arg(&path)
         .output()
@@ -229,7 +225,7 @@ fn analyze_json_has_the_documented_keys() {
         .and_then(serde_json::Value::as_f64)
         .expect("alpha");
     assert!((alpha - 1.25).abs() < 1e-6, "alpha = {alpha}");
-    let human = spreadscope()
+    let human = binary()
         .args(["analyze", "--bootstrap", "0"])
         .arg(&path)
         .output()
@@ -247,7 +243,7 @@ fn correlate(
 ) {
     let dir = tempfile::tempdir().expect("temp dir");
     let out_path = dir.path().join("c.csv");
-    let out = spreadscope()
+    let out = binary()
         .arg("correlate")
         .arg(crate::support::repo_path(file))
         .args(extra)
@@ -301,7 +297,7 @@ fn correlate_refuses_bad_shots_and_bad_options_with_exit_2() {
         "state_id,t,init_bits,meas_bits\na,0,0101,0101\na,1,0101,01x1\n",
     )
     .expect("writes");
-    let out = spreadscope()
+    let out = binary()
         .arg("correlate")
         .arg(&bad)
         .arg("--out")
@@ -404,7 +400,7 @@ fn simulate_uses_a_measured_coupling_matrix() {
 fn analyze_reads_a_correlation_map_from_hdf5() {
     // tests/reference/shots/map.h5 is written by h5py (make_fixtures.py);
     // the same file through the API is covered by the format sniffing.
-    let out = spreadscope()
+    let out = binary()
         .args(["analyze", "--json", "--bootstrap", "0"])
         .arg(crate::support::repo_path("tests/reference/shots/map.h5"))
         .output()
@@ -432,7 +428,7 @@ fn session_new_list_and_rename_work_on_a_data_directory() {
     let dir = tempfile::tempdir().expect("temp dir");
     let data = dir.path().to_str().expect("utf-8 path");
     let run = |args: &[&str]| {
-        let out = spreadscope()
+        let out = binary()
             .arg("session")
             .args(args)
             .args(["--data", data, "--json"])

@@ -5,35 +5,14 @@
 use axum::http::{Method, StatusCode};
 use serde_json::{Value, json};
 
-use crate::support::{app, new_session, send, send_json};
+use crate::support::{app, fit, gaussian_csv, new_session, pin, send, send_json, upload_csv};
 
-/// Diffusive data in closed form: C(x,t) = exp(−x²/(4Dt)) / (2√(πDt)),
-/// D = 0.5, the Gaussian of variance 2Dt (common practice, no source), with
-/// a stated error of 1e-4 and no noise.
-fn gaussian_csv() -> String {
-    let mut csv = String::from("x,t,C,err\n");
-    for k in 0..12 {
-        let t = 2.0 * 1.25f64.powi(k);
-        for x in -30..=30 {
-            let dt = 0.5 * t;
-            let c = (-(f64::from(x)).powi(2) / (4.0 * dt)).exp()
-                / (2.0 * (std::f64::consts::PI * dt).sqrt());
-            csv.push_str(&format!("{x},{t:?},{c:?},0.0001\n"));
-        }
-    }
-    csv
-}
-
-async fn upload(router: &axum::Router, edit: &str, name: &str, csv: String) -> i64 {
-    let (status, ds) = send_json(
-        router,
-        Method::POST,
-        &format!("/api/s/{edit}/datasets?name={name}&format=csv"),
-        csv,
-    )
-    .await;
-    assert_eq!(status, StatusCode::CREATED, "{ds}");
-    ds["id"].as_i64().expect("id")
+/// Pins `fit` (a fit request's answer) with a comment holding a comma (a CSV
+/// trap); returns the entry id.
+async fn pin_fit(router: &axum::Router, edit: &str, dataset: i64, fit: &Value) -> i64 {
+    let body =
+        json!({"author": "Ada", "comment": "pinned, with a comma", "dataset": dataset, "fit": fit});
+    pin(router, edit, &body).await["id"].as_i64().expect("id")
 }
 
 #[tokio::test]
@@ -43,10 +22,10 @@ async fn slider_quality_from_the_cache_equals_an_uncached_answer_self_consistent
     // measure.
     let cached = app().await;
     let (edit, view) = new_session(&cached.router).await;
-    let id = upload(&cached.router, &edit, "gauss.csv", gaussian_csv()).await;
+    let id = upload_csv(&cached.router, &edit, "gauss.csv", gaussian_csv()).await;
     let cold = app().await;
     let (cold_edit, _) = new_session(&cold.router).await;
-    let cold_id = upload(&cold.router, &cold_edit, "gauss.csv", gaussian_csv()).await;
+    let cold_id = upload_csv(&cold.router, &cold_edit, "gauss.csv", gaussian_csv()).await;
     let before = cached.service.quality_cache().len();
     for (k, z) in [1.5, 2.0, 2.5, 2.0].into_iter().enumerate() {
         // Edit and view links share the session's cached measure.
@@ -88,33 +67,6 @@ async fn slider_quality_from_the_cache_equals_an_uncached_answer_self_consistent
     assert_eq!(cached.service.quality_cache().len(), before + 1);
 }
 
-/// Pins `fit` (a fit request's answer) with a comment; returns the entry id.
-async fn pin(router: &axum::Router, edit: &str, dataset: i64, fit: &Value) -> i64 {
-    let body =
-        json!({"author": "Ada", "comment": "pinned, with a comma", "dataset": dataset, "fit": fit});
-    let (status, entry) = send_json(
-        router,
-        Method::POST,
-        &format!("/api/s/{edit}/log"),
-        body.to_string(),
-    )
-    .await;
-    assert_eq!(status, StatusCode::CREATED, "{entry}");
-    entry["id"].as_i64().expect("id")
-}
-
-async fn fit(router: &axum::Router, edit: &str, id: i64, request: Value) -> Value {
-    let (status, fit) = send_json(
-        router,
-        Method::POST,
-        &format!("/api/s/{edit}/datasets/{id}/fits"),
-        request.to_string(),
-    )
-    .await;
-    assert_eq!(status, StatusCode::OK, "{fit}");
-    fit
-}
-
 /// Reads a CSV download with the `csv` crate: header and rows, after
 /// checking that every row has the header's width.
 fn read_csv(bytes: &[u8]) -> (Vec<String>, Vec<Vec<String>>) {
@@ -148,23 +100,17 @@ fn read_csv(bytes: &[u8]) -> (Vec<String>, Vec<Vec<String>>) {
 async fn log_csv_has_one_quantity_per_cell_and_fits_a_spreadsheet_cell() {
     let app = app().await;
     let (edit, view) = new_session(&app.router).await;
-    let id = upload(&app.router, &edit, "gauss.csv", gaussian_csv()).await;
+    let id = upload_csv(&app.router, &edit, "gauss.csv", gaussian_csv()).await;
     let tail = fit(
         &app.router,
         &edit,
         id,
-        json!({"method": "tail", "windows": {"t_min": 5.0}}),
+        &json!({"method": "tail", "windows": {"t_min": 5.0}}),
     )
     .await;
-    let profile = fit(
-        &app.router,
-        &edit,
-        id,
-        json!({"method": "profile", "windows": {"t_min": 5.0}, "options": {"bootstrap": 4, "seed": 1}}),
-    )
-    .await;
-    let first = pin(&app.router, &edit, id, &tail).await;
-    pin(&app.router, &edit, id, &profile).await;
+    let profile = fit(&app.router, &edit, id, &json!({"method": "profile", "windows": {"t_min": 5.0}, "options": {"bootstrap": 4, "seed": 1}})).await;
+    let first = pin_fit(&app.router, &edit, id, &tail).await;
+    pin_fit(&app.router, &edit, id, &profile).await;
     let (status, _) = send_json(
         &app.router,
         Method::POST,
@@ -263,17 +209,11 @@ async fn log_csv_has_one_quantity_per_cell_and_fits_a_spreadsheet_cell() {
 async fn comparison_curves_and_residuals_download_as_csv() {
     let app = app().await;
     let (edit, view) = new_session(&app.router).await;
-    let id = upload(&app.router, &edit, "gauss.csv", gaussian_csv()).await;
-    let profile = fit(
-        &app.router,
-        &edit,
-        id,
-        json!({"method": "profile", "windows": {"t_min": 5.0, "x_max": 10}, "options": {"bootstrap": 4, "seed": 1}}),
-    )
-    .await;
-    let width = fit(&app.router, &edit, id, json!({"method": "width"})).await;
-    let with_curves = pin(&app.router, &edit, id, &profile).await;
-    let without = pin(&app.router, &edit, id, &width).await;
+    let id = upload_csv(&app.router, &edit, "gauss.csv", gaussian_csv()).await;
+    let profile = fit(&app.router, &edit, id, &json!({"method": "profile", "windows": {"t_min": 5.0, "x_max": 10}, "options": {"bootstrap": 4, "seed": 1}})).await;
+    let width = fit(&app.router, &edit, id, &json!({"method": "width"})).await;
+    let with_curves = pin_fit(&app.router, &edit, id, &profile).await;
+    let without = pin_fit(&app.router, &edit, id, &width).await;
 
     let (status, bytes, _) = send(
         &app.router,
@@ -383,8 +323,8 @@ async fn demo_report_draws_pinned_fits_on_a_log_map_and_stays_small() {
             json!({"method": "profile", "options": {"bootstrap": 4, "seed": 1}}),
             json!({"method": "tail"}),
         ] {
-            let result = fit(&app.router, &edit, id, request).await;
-            entries.push(pin(&app.router, &edit, id, &result).await);
+            let result = fit(&app.router, &edit, id, &request).await;
+            entries.push(pin_fit(&app.router, &edit, id, &result).await);
         }
     }
     let (status, bytes, _) = send(

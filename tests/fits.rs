@@ -4,35 +4,10 @@
 use axum::http::{Method, StatusCode};
 use serde_json::{Value, json};
 
-use crate::support::{app, new_session, send_json};
-
-/// Diffusive scaling data, closed form (physics notes: z = 2 is a Gaussian of
-/// variance 2Dt): C(x,t) = exp(−x²/(4Dt)) / (2√(πDt)), D = 0.5, with a
-/// stated error of 1e-4 on every point and no noise.
-fn gaussian_csv() -> String {
-    let mut csv = String::from("x,t,C,err\n");
-    for k in 0..12 {
-        let t = 2.0 * 1.25f64.powi(k);
-        for x in -30..=30 {
-            let dt = 0.5 * t;
-            let c = (-(f64::from(x)).powi(2) / (4.0 * dt)).exp()
-                / (2.0 * (std::f64::consts::PI * dt).sqrt());
-            csv.push_str(&format!("{x},{t:?},{c:?},0.0001\n"));
-        }
-    }
-    csv
-}
+use crate::support::{app, gaussian_csv, new_session, open_events, send_json, upload_csv};
 
 async fn upload_gaussian(router: &axum::Router, edit: &str) -> i64 {
-    let (status, ds) = send_json(
-        router,
-        Method::POST,
-        &format!("/api/s/{edit}/datasets?name=gauss.csv"),
-        gaussian_csv(),
-    )
-    .await;
-    assert_eq!(status, StatusCode::CREATED, "{ds}");
-    ds["id"].as_i64().expect("id")
+    upload_csv(router, edit, "gauss.csv", gaussian_csv()).await
 }
 
 #[tokio::test]
@@ -163,21 +138,10 @@ async fn bad_fit_requests_name_their_field() {
 #[tokio::test]
 async fn a_fit_with_a_job_id_reports_progress_as_events() {
     use http_body_util::BodyExt;
-    use tower::ServiceExt;
     let app = app().await;
     let (edit, _) = new_session(&app.router).await;
     let id = upload_gaussian(&app.router, &edit).await;
-    let request = axum::http::Request::builder()
-        .uri(format!("/api/s/{edit}/events"))
-        .body(axum::body::Body::empty())
-        .expect("request");
-    let mut events = app
-        .router
-        .clone()
-        .oneshot(request)
-        .await
-        .expect("answers")
-        .into_body();
+    let mut events = open_events(&app.router, &edit).await.into_body();
     let body = json!({"method": "width", "job": "job-7"});
     let (status, _) = send_json(
         &app.router,
@@ -462,21 +426,10 @@ async fn analysis_returns_the_verdict_and_the_windows_of_the_one_rule_and_pins_t
 #[tokio::test]
 async fn a_running_analysis_reports_steps_and_stops_when_cancelled() {
     use http_body_util::BodyExt;
-    use tower::ServiceExt;
     let app = app().await;
     let (edit, _) = new_session(&app.router).await;
     let id = upload_gaussian(&app.router, &edit).await;
-    let request = axum::http::Request::builder()
-        .uri(format!("/api/s/{edit}/events"))
-        .body(axum::body::Body::empty())
-        .expect("request");
-    let mut events = app
-        .router
-        .clone()
-        .oneshot(request)
-        .await
-        .expect("answers")
-        .into_body();
+    let mut events = open_events(&app.router, &edit).await.into_body();
     let router = app.router.clone();
     let uri = format!("/api/s/{edit}/datasets/{id}/fits");
     let running = tokio::spawn(async move {

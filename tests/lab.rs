@@ -14,12 +14,9 @@ use axum::http::{Method, StatusCode};
 use serde_json::{Value, json};
 
 use crate::support::{
-    SMALL_CSV, Server, app, dataset_count, http, new_session, repo_path, send, send_json,
+    SMALL_CSV, Server, app, binary, dataset_count, http, new_session, pin, repo_path, send,
+    send_json,
 };
-
-fn bin() -> Command {
-    Command::new(env!("CARGO_BIN_EXE_spreadscope"))
-}
 
 fn token_of(link: &str) -> String {
     link.rsplit('/').next().expect("token").to_string()
@@ -137,7 +134,7 @@ fn a_push_retried_after_its_answer_was_lost_stores_one_dataset() {
     drop(stream);
     std::thread::sleep(Duration::from_millis(300));
     for round in 0..2 {
-        let out = bin()
+        let out = binary()
             .args(["push", "--to", &edit_link])
             .arg(&file)
             .output()
@@ -158,7 +155,7 @@ fn a_push_retried_after_its_answer_was_lost_stores_one_dataset() {
 
     // Exit codes: a view link and a bad file are bad input (2), an
     // unreachable server is a failure (1); metadata lands on the dataset.
-    let view = bin()
+    let view = binary()
         .args(["push", "--to", &view_link])
         .arg(&file)
         .output()
@@ -171,7 +168,7 @@ fn a_push_retried_after_its_answer_was_lost_stores_one_dataset() {
     );
     let bad = dir.path().join("bad.csv");
     std::fs::write(&bad, "x,t,C\n0,0.5,1.0\n1,zero,0.5\n").expect("writes");
-    let refused = bin()
+    let refused = binary()
         .args(["push", "--to", &edit_link])
         .arg(&bad)
         .output()
@@ -182,19 +179,19 @@ fn a_push_retried_after_its_answer_was_lost_stores_one_dataset() {
         line.contains("bad.csv") && line.contains("line 3"),
         "{line}"
     );
-    let missing = bin()
+    let missing = binary()
         .args(["push", "--to", &edit_link, "/nonexistent/file.csv"])
         .output()
         .expect("runs");
     assert_eq!(missing.status.code(), Some(2));
     let nobody = format!("http://127.0.0.1:9/s/{token}");
-    let down = bin()
+    let down = binary()
         .args(["push", "--attempts", "1", "--to", &nobody])
         .arg(&file)
         .output()
         .expect("runs");
     assert_eq!(down.status.code(), Some(1));
-    let named = bin()
+    let named = binary()
         .args([
             "push",
             "--to",
@@ -409,18 +406,6 @@ fn a_kill_during_a_watched_ingest_leaves_the_file_whole_or_absent_then_takes_it_
     assert!(again.stop().success());
 }
 
-async fn pin(router: &axum::Router, edit: &str, body: Value) -> i64 {
-    let (status, entry) = send_json(
-        router,
-        Method::POST,
-        &format!("/api/s/{edit}/log"),
-        body.to_string(),
-    )
-    .await;
-    assert_eq!(status, StatusCode::CREATED, "{entry}");
-    entry["id"].as_i64().expect("id")
-}
-
 /// A log with ids renumbered by position, for comparing sessions.
 fn normalised_log(entries: &[Value], datasets: &[Value]) -> Vec<Value> {
     let position = |id: &Value, list: &[Value]| list.iter().position(|e| e["id"] == *id);
@@ -471,13 +456,15 @@ async fn an_archive_round_trips_with_equal_hashes_and_log_and_damage_is_refused(
     let first = pin(
         &source.router,
         &edit,
-        json!({"author": "ana", "comment": "tail", "dataset": ds["id"], "fit": fit}),
+        &json!({"author": "ana", "comment": "collapse", "dataset": ds["id"], "fit": fit}),
     )
-    .await;
+    .await["id"]
+        .as_i64()
+        .expect("id");
     pin(
         &source.router,
         &edit,
-        json!({"author": "ben", "comment": "wrong window", "retracts": first}),
+        &json!({"author": "ben", "comment": "wrong window", "retracts": first}),
     )
     .await;
 
@@ -608,7 +595,7 @@ fn archive_commands_move_a_session_between_servers() {
     let a = Server::start(a_dir.path());
     let b = Server::start(b_dir.path());
     let file = a_dir.path().join("moved.zip");
-    let out = bin()
+    let out = binary()
         .args(["archive", "export", &a.links[0].1, "--out"])
         .arg(&file)
         .output()
@@ -618,7 +605,7 @@ fn archive_commands_move_a_session_between_servers() {
         "{}",
         String::from_utf8_lossy(&out.stderr)
     );
-    let again = bin()
+    let again = binary()
         .args(["archive", "export", &a.links[0].1, "--out"])
         .arg(&file)
         .output()
@@ -628,7 +615,7 @@ fn archive_commands_move_a_session_between_servers() {
         Some(2),
         "an existing file is not overwritten"
     );
-    let out = bin()
+    let out = binary()
         .args(["archive", "import"])
         .arg(&file)
         .args(["--to", &b.base])
@@ -657,7 +644,7 @@ fn archive_commands_move_a_session_between_servers() {
     };
     assert_eq!(hashes(&moved), hashes(&original));
     std::fs::write(&file, b"PK\x03\x04 not really").expect("writes");
-    let out = bin()
+    let out = binary()
         .args(["archive", "import"])
         .arg(&file)
         .args(["--to", &b.base])
@@ -699,7 +686,7 @@ fn a_backup_taken_under_writes_is_consistent_and_keeps_every_acknowledged_pin() 
     });
     let before_backup = acked.lock().expect("lock").clone();
     let copy = dir.path().join("copy.sqlite3");
-    let out = bin()
+    let out = binary()
         .args(["backup", "--data"])
         .arg(dir.path())
         .arg("--out")
@@ -713,7 +700,7 @@ fn a_backup_taken_under_writes_is_consistent_and_keeps_every_acknowledged_pin() 
         "{}",
         String::from_utf8_lossy(&out.stderr)
     );
-    let again = bin()
+    let again = binary()
         .args(["backup", "--data"])
         .arg(dir.path())
         .arg("--out")
@@ -769,9 +756,11 @@ async fn a_full_disk_is_a_clear_error_and_loses_nothing() {
     let entry = pin(
         &app.router,
         &edit,
-        json!({"author": "ana", "comment": "before the disk filled"}),
+        &json!({"author": "ana", "comment": "before the disk filled"}),
     )
-    .await;
+    .await["id"]
+        .as_i64()
+        .expect("id");
     let (status, body) = send_json(
         &app.router,
         Method::POST,
@@ -878,7 +867,7 @@ fn the_server_answers_over_https_with_a_self_signed_certificate() {
     // push works over it with --ca.
     let file = dir.path().join("tls.csv");
     std::fs::write(&file, SMALL_CSV).expect("writes");
-    let out = bin()
+    let out = binary()
         .args(["push", "--to", &edit_link, "--ca"])
         .arg(&cert)
         .arg(&file)
@@ -977,7 +966,7 @@ fn an_exported_archive_is_an_ordinary_zip_file() {
     let server = Server::start(dir.path());
     let link = server.links[0].1.clone();
     let file = dir.path().join("demo.zip");
-    let out = bin()
+    let out = binary()
         .args(["archive", "export", &link, "--out"])
         .arg(&file)
         .output()

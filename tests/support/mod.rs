@@ -15,6 +15,11 @@ use spreadscope::app::App;
 use spreadscope::store::Store;
 use tower::ServiceExt;
 
+/// The program under test, as a command to add arguments to.
+pub fn binary() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_spreadscope"))
+}
+
 /// Path of a file in the repository.
 pub fn repo_path(rel: &str) -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR")).join(rel)
@@ -106,7 +111,7 @@ impl Server {
 
     /// Like [`Server::start`], with more `serve` options.
     pub fn start_with(data: &Path, extra: &[&std::ffi::OsStr]) -> Self {
-        let mut child = Command::new(env!("CARGO_BIN_EXE_spreadscope"))
+        let mut child = binary()
             .args(["serve", "--port", "0", "--data"])
             .arg(data)
             .args(extra)
@@ -154,7 +159,7 @@ impl Drop for Server {
     }
 }
 
-/// A small valid long CSV: a Gaussian-ish spread on 5 sites at 3 times.
+/// A small valid long CSV: a Gaussian-ish spread on 3 sites at 2 times.
 pub const SMALL_CSV: &str = "x,t,C,err\n\
 -1,0.5,0.2,0.01\n0,0.5,0.6,0.01\n1,0.5,0.2,0.01\n\
 -1,1.0,0.3,0.01\n0,1.0,0.4,0.01\n1,1.0,0.3,0.01\n";
@@ -185,4 +190,75 @@ pub fn http(method: &str, url: &str, body: &str) -> Option<(u16, String)> {
     // small JSON answers, which axum sends with Content-Length.
     let _ = head;
     Some((status, body.to_string()))
+}
+
+/// Diffusive scaling data in closed form (physics notes, "Conventions": z = 2
+/// is a Gaussian of variance 2Dt): C(x,t) = exp(−x²/(4Dt)) / (2√(πDt)),
+/// D = 0.5, 61 sites × 12 log-spaced times, a stated error of 1e-4 on every
+/// point and no noise.
+pub fn gaussian_csv() -> String {
+    let mut csv = String::from("x,t,C,err\n");
+    for k in 0..12 {
+        let t = 2.0 * 1.25f64.powi(k);
+        for x in -30..=30 {
+            let dt = 0.5 * t;
+            let c = (-(f64::from(x)).powi(2) / (4.0 * dt)).exp()
+                / (2.0 * (std::f64::consts::PI * dt).sqrt());
+            csv.push_str(&format!("{x},{t:?},{c:?},0.0001\n"));
+        }
+    }
+    csv
+}
+
+/// Uploads a CSV map under `name`; returns the new dataset's id.
+pub async fn upload_csv(router: &Router, edit: &str, name: &str, csv: String) -> i64 {
+    let (status, ds) = send_json(
+        router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets?name={name}&format=csv"),
+        csv,
+    )
+    .await;
+    assert_eq!(status, StatusCode::CREATED, "{ds}");
+    ds["id"].as_i64().expect("id")
+}
+
+/// Runs a fit request on a dataset and expects an answer; returns the fit.
+pub async fn fit(router: &Router, edit: &str, id: i64, request: &Value) -> Value {
+    let (status, fit) = send_json(
+        router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/{id}/fits"),
+        request.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    fit
+}
+
+/// Pins a log entry (`body` as the log route takes it); returns the entry.
+pub async fn pin(router: &Router, edit: &str, body: &Value) -> Value {
+    let (status, entry) = send_json(
+        router,
+        Method::POST,
+        &format!("/api/s/{edit}/log"),
+        body.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::CREATED, "{entry}");
+    entry
+}
+
+/// Opens a session's event stream through the router; returns the response
+/// (its body yields the server-sent events).
+pub async fn open_events(router: &Router, token: &str) -> axum::response::Response {
+    let request = Request::builder()
+        .uri(format!("/api/s/{token}/events"))
+        .body(Body::empty())
+        .expect("request builds");
+    router
+        .clone()
+        .oneshot(request)
+        .await
+        .expect("router answers")
 }
