@@ -303,6 +303,15 @@ type Computed = (
     Option<u64>,
 );
 
+/// What the analysis decided besides its parameters: the verdict and the
+/// scaling window it used (typed, so the envelope never reads them back
+/// from the report's JSON).
+struct AnalysisHeadline {
+    verdict: Verdict,
+    windows: Windows,
+    rule: String,
+}
+
 /// Reports progress of a job; `false` when it was cancelled.
 type JobProgress<'a> = &'a (dyn Fn(f64) -> bool + Sync);
 
@@ -311,8 +320,8 @@ struct FitInput {
     /// The map cut to the request's windows.
     map: CorrelationMap,
     /// The whole map (the analysis chooses its own windows inside the
-    /// request's bounds).
-    full: CorrelationMap,
+    /// request's bounds), shared by the members of the window family.
+    full: Arc<CorrelationMap>,
     windows: Windows,
     meta: crate::dataset::DatasetMeta,
 }
@@ -342,7 +351,7 @@ fn compute(
     input: &FitInput,
     options: &FitOptions,
     progress: JobProgress<'_>,
-    verdict_out: &mut Option<Verdict>,
+    analysis_out: &mut Option<AnalysisHeadline>,
 ) -> ServiceResult<Computed> {
     let map = &input.map;
     let window = TimeWindow::default();
@@ -550,7 +559,15 @@ fn compute(
             let text = report.render_text();
             let mut value = to_value(&report)?;
             value["text"] = json!(text);
-            *verdict_out = Some(report.verdict.clone());
+            *analysis_out = Some(AnalysisHeadline {
+                verdict: report.verdict.clone(),
+                windows: Windows {
+                    t_min: Some(report.windows.t_window[0]),
+                    t_max: Some(report.windows.t_window[1]),
+                    x_max: report.windows.x_max,
+                },
+                rule: report.windows.rule.clone(),
+            });
             Ok((
                 parameters,
                 quality,
@@ -616,7 +633,7 @@ fn window_errors(
         };
         let member = FitInput {
             map,
-            full: input.full.clone(),
+            full: Arc::clone(&input.full),
             windows: *w,
             meta: input.meta.clone(),
         };
@@ -834,7 +851,7 @@ impl Service {
         };
         let input = FitInput {
             map: used.apply(&full)?,
-            full,
+            full: Arc::new(full),
             windows: used,
             meta: summary.meta.clone(),
         };
@@ -876,8 +893,8 @@ impl Service {
                     }
                     !flag.load(Ordering::SeqCst)
                 };
-                let mut verdict = None;
-                let mut computed = compute(method, &input, &options, &progress, &mut verdict)?;
+                let mut headline = None;
+                let mut computed = compute(method, &input, &options, &progress, &mut headline)?;
                 window_errors(
                     &mut computed.0,
                     method,
@@ -887,7 +904,7 @@ impl Service {
                     &progress,
                 )?;
                 let overlay = overlay(method, &input, &computed.0, &computed.4);
-                Ok((computed, overlay, verdict))
+                Ok((computed, overlay, headline))
             })
             .await;
         if let Some(id) = &job {
@@ -897,21 +914,12 @@ impl Service {
         if cancel.load(Ordering::SeqCst) {
             return Err(ServiceError::Cancelled);
         }
-        let ((parameters, quality, termination, warnings, report, seed), overlay, verdict) =
+        let ((parameters, quality, termination, warnings, report, seed), overlay, headline) =
             outcome?;
-        let (windows, rule) = match method {
-            FitMethod::Analysis => (
-                Windows {
-                    t_min: report["windows"]["t_window"][0].as_f64(),
-                    t_max: report["windows"]["t_window"][1].as_f64(),
-                    x_max: request.windows.x_max,
-                },
-                report["windows"]["rule"]
-                    .as_str()
-                    .unwrap_or_default()
-                    .to_string(),
-            ),
-            FitMethod::LatticeWalk | FitMethod::ShortTime => {
+        let verdict = headline.as_ref().map(|h| h.verdict.clone());
+        let (windows, rule) = match (method, headline) {
+            (FitMethod::Analysis, Some(h)) => (h.windows, h.rule),
+            (FitMethod::LatticeWalk | FitMethod::ShortTime, _) => {
                 let t = &walk_times;
                 (
                     Windows {
