@@ -95,13 +95,23 @@ export function dUnit(d) {
 export function parameterValue(p) {
   const extra = /** @type {{fixed?: boolean, err_sys?: number | null}} */ (p);
   if (extra.fixed) return `${withError(p.value, null)} (fixed)`;
-  const stat = p.err ?? p.err_bootstrap ?? null;
-  const text = withError(p.value, stat);
-  const sys = extra.err_sys ?? null;
-  if (stat !== null && sys !== null && Number.isFinite(sys) && sys > 0) {
-    // Both errors rounded at the place of the statistical one.
+  return withTwoErrors(p.value, p.err ?? p.err_bootstrap ?? null, extra.err_sys ?? null);
+}
+
+/**
+ * A value with its statistical and window errors, rounded to the
+ * statistical one (two significant digits): "1.304 ± 0.0005 (stat) ±
+ * 0.0040 (window)". Without a window error it is `withError`'s text.
+ * @param {number} value
+ * @param {number | null} stat
+ * @param {number | null} sys
+ * @returns {string}
+ */
+export function withTwoErrors(value, stat, sys) {
+  const text = withError(value, stat);
+  if (stat !== null && Number.isFinite(stat) && stat > 0 && sys !== null && Number.isFinite(sys) && sys > 0) {
     const digits = Math.max(0, 1 - Math.floor(Math.log10(stat)));
-    return `${text} (stat) ±\u00a0${digits <= 8 ? sys.toFixed(digits) : String(sys)} (window)`;
+    return `${text} (stat) ±\u00a0${digits <= 8 ? sys.toFixed(digits) : formatNumber(Number(sys.toPrecision(2)))} (window)`;
   }
   return text;
 }

@@ -12,6 +12,7 @@ import { dUnit, methodName, parameterValue } from "./fitformat.js";
 import { setTextScale } from "./plot.js";
 import { VIEW_NAMES, activate, activeView, gridShown, redrawAll, setGrid } from "./views.js";
 import { windowTexts } from "./windows.js";
+import { formulaNodes } from "./words.js";
 
 /** @typedef {import("./api.js").DatasetDetail} DatasetDetail */
 /** @typedef {import("./api.js").FitResult} FitResult */
@@ -80,22 +81,6 @@ function fitBanner(d) {
   };
 }
 
-/**
- * Writes "sites^z" with a real superscript.
- * @param {string} text
- * @returns {Array<Node | string>}
- */
-function withSuperscripts(text) {
-  const parts = text.split("^z");
-  /** @type {Array<Node | string>} */
-  const out = [];
-  parts.forEach((part, i) => {
-    if (i > 0) out.push(h("sup", {}, ["z"]));
-    out.push(part);
-  });
-  return out;
-}
-
 function renderBanner() {
   const banner = byId("present-banner", HTMLElement);
   const d = state.dataset;
@@ -114,7 +99,7 @@ function renderBanner() {
       h("span", { class: "banner-name" }, [item.name]),
       " = ",
       h("span", { class: "banner-value" }, [item.value]),
-      ...(item.unit ? [" ", h("span", { class: "banner-unit" }, withSuperscripts(item.unit))] : []),
+      ...(item.unit ? [" ", h("span", { class: "banner-unit" }, formulaNodes(item.unit))] : []),
     ]),
   );
   banner.replaceChildren(

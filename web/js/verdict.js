@@ -7,8 +7,11 @@
 
 import { on } from "./bus.js";
 import { byId, h } from "./dom.js";
-import { formatNumber } from "./format.js";
+import { withTwoErrors } from "./fitformat.js";
 import { drawLocalExponent, plottingAvailable } from "./plot.js";
+import { refreshBanner, setBannerSource } from "./present.js";
+import { windowTexts } from "./windows.js";
+import { formulaNodes } from "./words.js";
 
 /** Which dataset the banner belongs to, so a late answer is dropped. */
 let showing = "";
@@ -23,19 +26,18 @@ function banner() {
 }
 
 /**
- * "1.304 ± 0.0005 (stat) ± 0.004 (window)".
+ * A value with both errors, or a dash.
  * @param {number | null} v
  * @param {number | null} stat
  * @param {number | null} sys
  * @returns {string}
  */
-export function twoErrors(v, stat, sys) {
-  if (v === null) return "—";
-  let text = formatNumber(v);
-  if (stat !== null) text += ` ± ${formatNumber(stat)} (stat)`;
-  if (sys !== null) text += ` ± ${formatNumber(sys)} (window)`;
-  return text;
+function twoErrors(v, stat, sys) {
+  return v === null ? "—" : withTwoErrors(v, stat, sys);
 }
+
+/** The analysis last shown per dataset id, for the presentation banner. @type {Map<string, import("./api.js").FitResult>} */
+const verdicts = new Map();
 
 /** @type {Record<string, string>} */
 const CLASS_WORDS = {
@@ -58,7 +60,7 @@ export function renderVerdict(v, report = {}, unit = "") {
     h("strong", { class: "verdict-class", "data-class": v.class }, [CLASS_WORDS[v.class] ?? v.class]),
     h("span", { class: "verdict-z" }, [` z = ${twoErrors(v.z, v.z_err_stat, v.z_err_sys)}`]),
   ];
-  if (v.D !== null) lines.push(h("span", { class: "verdict-d" }, [`, D = ${twoErrors(v.D, v.D_err_stat, v.D_err_sys)} ${v.D_units}`]));
+  if (v.D !== null) lines.push(h("span", { class: "verdict-d" }, [`, D = ${twoErrors(v.D, v.D_err_stat, v.D_err_sys)} `, ...formulaNodes(v.D_units)]));
   if (v.estimator) lines.push(h("span", { class: "muted" }, [` — from the ${v.estimator}: ${v.why}`]));
   const reasons = h("details", {}, [h("summary", {}, ["Why"]), h("ul", {}, [...v.reasons, v.D_convention].map((r) => h("li", {}, [r])))]);
   banner().replaceChildren(h("p", {}, lines), reasons);
@@ -83,6 +85,8 @@ export async function showVerdictFor(api, detail) {
   try {
     const result = await api.fit(id, { method: "analysis", windows: {}, options: {} });
     if (showing !== id || !result.verdict) return;
+    verdicts.set(id, result);
+    refreshBanner();
     renderVerdict(result.verdict, result.report, detail.meta.time_unit);
   } catch (e) {
     if (showing !== id) return;
@@ -92,4 +96,16 @@ export async function showVerdictFor(api, detail) {
 
 on("fit", (fit) => {
   if (fit.method === "analysis" && fit.verdict && String(fit.dataset) === showing) renderVerdict(fit.verdict, fit.report);
+});
+
+// The presentation banner shows the dataset's verdict once it is known.
+setBannerSource((d) => {
+  const result = verdicts.get(String(d.id));
+  const v = result?.verdict;
+  if (result === undefined || v === undefined) return null;
+  const windows = windowTexts(result.windows, d.meta.time_unit).map((w) => w.text);
+  /** @type {Array<{name: string, value: string, unit?: string}>} */
+  const items = [{ name: "z", value: twoErrors(v.z, v.z_err_stat, v.z_err_sys) }];
+  if (v.D !== null) items.push({ name: "D", value: twoErrors(v.D, v.D_err_stat, v.D_err_sys), unit: v.D_units });
+  return { heading: `${CLASS_WORDS[v.class] ?? v.class} (${v.estimator})`, items, footnote: [windows.length > 0 ? `windows ${windows.join(", ")}` : "", v.D_convention].filter((t) => t !== "").join("; ") };
 });

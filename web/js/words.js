@@ -130,7 +130,7 @@ export function valueWords(value) {
 export function formulaNodes(text) {
   /** @type {Array<Node | string>} */
   const out = [];
-  const pattern = /σ([zxy+-])|([_^])(\{[^}]*\}|-?[A-Za-z0-9]+)/g;
+  const pattern = /σ([zxy+-])|([_^])(\{[^}]*\}|-?[A-Za-z0-9]+(?:\.[0-9]+)?)/g;
   let last = 0;
   for (const m of text.matchAll(pattern)) {
     const at = m.index ?? 0;

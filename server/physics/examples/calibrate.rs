@@ -9,10 +9,26 @@
 
 use spreadscope_physics::fit::calibration::{cases, run};
 
+/// The `position`-th argument as a count, `default` when absent; a word that
+/// is not a count ends the program with exit code 2 naming it.
+fn count_arg(args: &[String], position: usize, name: &str, default: usize) -> usize {
+    match args.get(position) {
+        None => default,
+        Some(a) => a.parse().unwrap_or_else(|_| {
+            eprintln!("calibrate: argument {} ({name}): `{a}` is not a count", position + 1);
+            std::process::exit(2)
+        }),
+    }
+}
+
 fn main() {
-    let mut args = std::env::args().skip(1);
-    let copies: usize = args.next().and_then(|a| a.parse().ok()).unwrap_or(40);
-    let bootstrap: usize = args.next().and_then(|a| a.parse().ok()).unwrap_or(0);
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    if args.len() > 2 {
+        eprintln!("calibrate: at most two arguments, COPIES and BOOTSTRAP");
+        std::process::exit(2);
+    }
+    let copies = count_arg(&args, 0, "COPIES", 40);
+    let bootstrap = count_arg(&args, 1, "BOOTSTRAP", 0);
     println!("calibration: {copies} seeded copies per case, {bootstrap} bootstrap resamples");
     println!(
         "{:<34} {:<22} {:>7} {:>9} {:>9} {:>9} {:>9}",

@@ -63,20 +63,6 @@ impl<T> std::fmt::Debug for SharedJobs<T> {
     }
 }
 
-/// A service error rebuilt for each waiter of a shared computation.
-fn rebuild(e: &ServiceError) -> ServiceError {
-    match e {
-        ServiceError::NotFound => ServiceError::NotFound,
-        ServiceError::Forbidden => ServiceError::Forbidden,
-        ServiceError::Invalid(i) => ServiceError::Invalid(i.clone()),
-        ServiceError::BadRequest(m) => ServiceError::BadRequest(m.clone()),
-        ServiceError::Cancelled => ServiceError::Cancelled,
-        ServiceError::Busy(s) => ServiceError::Busy(*s),
-        ServiceError::StorageFull => ServiceError::StorageFull,
-        ServiceError::Internal(m) => ServiceError::Internal(m.clone()),
-    }
-}
-
 impl<T: Send + Sync + 'static> SharedJobs<T> {
     /// At most `capacity` distinct computations in flight, `cache_size`
     /// finished results kept.
@@ -193,7 +179,7 @@ impl<T: Send + Sync + 'static> SharedJobs<T> {
         waiter.done = true;
         match outcome {
             Some(Ok(value)) => Ok(value),
-            Some(Err(e)) => Err(rebuild(&e)),
+            Some(Err(e)) => Err(ServiceError::clone(&e)),
             None => Err(ServiceError::Cancelled),
         }
     }

@@ -41,7 +41,7 @@ pub const CONVENTIONS: &str = "C(x,t) = 2^-N Tr[σz_{j+x}(t) σz_j(0)] (infinite
 x = i − source in sites; H = Σ_{i<j} J_ij (σ+_i σ-_j + h.c. + (Δ/2) σz_i σz_j), ħ = 1; \
 scaling form Σ_x C(x,t) e^{ikx} ≈ exp(−D |k|^z t), D in sites^z per time unit.";
 
-#[derive(Debug, thiserror::Error)]
+#[derive(Debug, Clone, thiserror::Error)]
 pub enum ServiceError {
     /// Unknown token or object; reveals nothing about what exists.
     #[error("not found")]
