@@ -15,7 +15,10 @@ fn count_arg(args: &[String], position: usize, name: &str, default: usize) -> us
     match args.get(position) {
         None => default,
         Some(a) => a.parse().unwrap_or_else(|_| {
-            eprintln!("calibrate: argument {} ({name}): `{a}` is not a count", position + 1);
+            eprintln!(
+                "calibrate: argument {} ({name}): `{a}` is not a count",
+                position + 1
+            );
             std::process::exit(2)
         }),
     }

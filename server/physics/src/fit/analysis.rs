@@ -1503,7 +1503,7 @@ impl AnalysisReport {
             let _ = writeln!(
                 out,
                 "{:<22} α = {}, γ0 = {}",
-                "",
+                "walk parameters",
                 plus_minus(l.alpha, l.alpha_err),
                 plus_minus(l.gamma0, l.gamma0_err)
             );

@@ -56,6 +56,10 @@ use crate::fit::diagnosis::plus_minus;
 pub const CLASS_TOLERANCE: f64 = 0.1;
 /// Above this total error of z no class is named.
 pub const MAX_CLASS_ERROR: f64 = 0.5;
+/// Distance, in combined standard errors (stat and window of both), within
+/// which another estimator is said to agree with the headline (common
+/// practice, no source).
+pub const AGREE_WITHIN: f64 = 2.0;
 /// |α − 3/2| below which logarithmic corrections are announced.
 pub const CROSSOVER_HALF_WIDTH: f64 = 0.15;
 /// χ²/dof (or collapse S) above which errors are scaled by √(χ²/dof).
@@ -325,9 +329,24 @@ pub fn decide(
             Standing::Applies if l.name == "second moment" && !evidence.front => {
                 "not used: no sharp front (the second moment of a heavy-tailed profile is cut by the window)".to_string()
             }
-            Standing::Applies => match &l.z {
-                Some(z) => format!("z = {}, consistent check, not the headline", z.text()),
-                None => "gives no z".to_string(),
+            Standing::Applies => match (&l.z, chosen.and_then(|c| c.z.as_ref())) {
+                (Some(z), Some(head)) => {
+                    // Both errors of both estimates: the headline's window
+                    // error counts as much as its noise.
+                    let sigma = z.total_err().hypot(head.total_err());
+                    let off = (z.value - head.value).abs() / sigma;
+                    if off <= AGREE_WITHIN {
+                        format!("z = {}, agrees with the headline ({off:.1}σ)", z.text())
+                    } else {
+                        format!(
+                            "z = {}, disagrees with the headline by {off:.1}σ \
+                             (a drift of the local exponent or a model that does not fit)",
+                            z.text()
+                        )
+                    }
+                }
+                (Some(z), None) => format!("z = {}", z.text()),
+                (None, _) => "gives no z".to_string(),
             },
             Standing::NotApplicable => format!("does not apply: {}", l.detail),
             Standing::Saturated => format!("set aside, saturated regime: {}", l.detail),
@@ -497,6 +516,35 @@ mod tests {
             standing,
             detail: "test".into(),
         }
+    }
+
+    #[test]
+    fn other_estimators_are_said_to_agree_or_disagree_by_their_combined_errors() {
+        // Headline 1.30 ± 0.01 (stat) ± 0.005 (window), total error
+        // √(0.01² + 0.005²) = 0.01118 for each line, 0.01581 for a pair: the
+        // tail 1.32 is 1.3σ away, the width 1.50 is 12.6σ away.
+        let lines = [
+            line("stable profile", 1.30, 0.01, Standing::Applies),
+            line("autocorrelation tail", 1.32, 0.01, Standing::Applies),
+            line("quantile width", 1.50, 0.01, Standing::Applies),
+        ];
+        let v = decide(&lines, Evidence::default(), DConvention::Rate, "1/J");
+        assert_eq!(v.estimator, "stable profile");
+        let said = |name: &str| {
+            v.reasons
+                .iter()
+                .find(|r| r.starts_with(name))
+                .cloned()
+                .unwrap_or_default()
+        };
+        assert!(
+            said("autocorrelation tail").contains("agrees with the headline (1.3σ)"),
+            "{v:?}"
+        );
+        assert!(
+            said("quantile width").contains("disagrees with the headline by 12.6σ"),
+            "{v:?}"
+        );
     }
 
     #[test]
