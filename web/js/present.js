@@ -106,7 +106,7 @@ function renderBanner() {
     name,
     h("span", { class: "banner-heading" }, [content.heading]),
     ...items,
-    ...(content.footnote ? [h("span", { class: "banner-foot" }, [content.footnote])] : []),
+    ...(content.footnote ? [h("span", { class: "banner-foot" }, formulaNodes(content.footnote))] : []),
   );
 }
 

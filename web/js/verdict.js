@@ -61,8 +61,9 @@ export function renderVerdict(v, report = {}, unit = "") {
     h("span", { class: "verdict-z" }, [` z = ${twoErrors(v.z, v.z_err_stat, v.z_err_sys)}`]),
   ];
   if (v.D !== null) lines.push(h("span", { class: "verdict-d" }, [`, D = ${twoErrors(v.D, v.D_err_stat, v.D_err_sys)} `, ...formulaNodes(v.D_units)]));
-  if (v.estimator) lines.push(h("span", { class: "muted" }, [` — from the ${v.estimator}: ${v.why}`]));
-  const reasons = h("details", {}, [h("summary", {}, ["Why"]), h("ul", {}, [...v.reasons, v.D_convention].map((r) => h("li", {}, [r])))]);
+  if (v.estimator) lines.push(h("span", { class: "muted" }, [` — from the ${v.estimator}`]));
+  const why = v.estimator ? [`The ${v.estimator} was chosen: ${v.why}.`] : [];
+  const reasons = h("details", {}, [h("summary", {}, ["Why"]), h("ul", {}, [...why, ...v.reasons, v.D_convention].map((r) => h("li", {}, formulaNodes(r))))]);
   banner().replaceChildren(h("p", {}, lines), reasons);
   const picture = /** @type {any} */ (report.local_exponent_picture);
   if (picture && Array.isArray(picture.z_eff) && picture.z_eff.length > 0 && plottingAvailable()) {

@@ -520,7 +520,13 @@ export function setGridViews(views) {
 
 /** Redraws every visible view (after a layout or lettering change). */
 export function redrawAll() {
-  for (const view of GRID_VIEWS) DRAW[view]();
+  for (const view of GRID_VIEWS) {
+    DRAW[view]();
+    // A change of layout (grid, presentation, side panel) resizes the
+    // containers; Plotly follows only window resizes by itself.
+    const el = plotEl(view);
+    if (el.offsetParent !== null) fitToContainer(el);
+  }
   if (state.grid) {
     for (const view of state.gridViews) if (!(/** @type {readonly string[]} */ (GRID_VIEWS)).includes(view)) registered[view]?.shown();
   } else registered[state.active]?.shown();
