@@ -61,25 +61,30 @@ pub async fn serve(
         .await
 }
 
-/// Resolves on Ctrl-C or SIGTERM.
-pub async fn shutdown_signal() {
-    let ctrl_c = async {
-        let _ = tokio::signal::ctrl_c().await;
-    };
+/// A future that resolves on Ctrl-C or SIGTERM. The handlers are registered
+/// when this is called, not when the future is first polled, so a signal sent
+/// right after the links are printed is never missed (call it before printing).
+///
+/// # Errors
+/// The signal handlers cannot be registered.
+pub fn shutdown_signal() -> std::io::Result<impl Future<Output = ()> + Send + 'static> {
     #[cfg(unix)]
-    let term = async {
-        match tokio::signal::unix::signal(tokio::signal::unix::SignalKind::terminate()) {
-            Ok(mut s) => {
-                s.recv().await;
+    {
+        use tokio::signal::unix::{SignalKind, signal};
+        let mut interrupt = signal(SignalKind::interrupt())?;
+        let mut term = signal(SignalKind::terminate())?;
+        Ok(async move {
+            tokio::select! {
+                _ = interrupt.recv() => {},
+                _ = term.recv() => {},
             }
-            Err(_) => std::future::pending::<()>().await,
-        }
-    };
+        })
+    }
     #[cfg(not(unix))]
-    let term = std::future::pending::<()>();
-    tokio::select! {
-        () = ctrl_c => {},
-        () = term => {},
+    {
+        Ok(async {
+            let _ = tokio::signal::ctrl_c().await;
+        })
     }
 }
 

@@ -151,14 +151,15 @@ fn serve(args: &ServeArgs) -> Result<(), CliError> {
             }
         }
         let scheme = if tls.is_some() { "https" } else { "http" };
+        let shutdown = app::shutdown_signal().map_err(|e| CliError::Failure(e.to_string()))?;
         app::print_links_with(&app.service, scheme, addr)
             .await
             .map_err(CliError::Failure)?;
         match tls {
-            Some(config) => crate::tls::serve(listener, config, app.router, app::shutdown_signal())
+            Some(config) => crate::tls::serve(listener, config, app.router, shutdown)
                 .await
                 .map_err(|e| CliError::Failure(e.to_string())),
-            None => app::serve(listener, app.router, app::shutdown_signal())
+            None => app::serve(listener, app.router, shutdown)
                 .await
                 .map_err(|e| CliError::Failure(e.to_string())),
         }
