@@ -391,6 +391,7 @@ fn compute(
                 WidthOptions {
                     q: options.q,
                     window,
+                    ..WidthOptions::default()
                 },
             )
             .map_err(bad)?;

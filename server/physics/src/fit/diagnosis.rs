@@ -13,6 +13,7 @@
 use crate::CorrelationMap;
 use crate::SumRulePoint;
 use crate::fit::tail::{LocalExponent, TimeWindow};
+use crate::model::shots::symmetric_readout_error;
 
 /// What a warning is about.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
@@ -359,10 +360,11 @@ pub fn sum_rule_off(points: &[SumRulePoint], covers_chain: Option<bool>) -> Opti
             .to_string()
     } else if max < 1.0 {
         let mean = points.iter().map(|p| p.sum).sum::<f64>() / points.len() as f64;
-        let e = (1.0 - mean.sqrt()) / 2.0;
+        let e = symmetric_readout_error(mean);
         format!(
-            "it is roughly constant below 1, as a readout error e ≈ {e:.3} would make it \
-             (C scales by about (1 − 2e)²)"
+            "it is roughly constant below 1, as a readout error e ≈ {e:.3} of the final \
+             measurement would make it (C scales by 1 − p01 − p10 = 1 − 2e; by (1 − 2e)² only \
+             when the recorded initial bits are wrong as often)"
         )
     } else {
         "it exceeds 1, which points at a readout or normalisation error".to_string()
@@ -574,9 +576,29 @@ mod tests {
         assert!(sum_rule_off(&pts(&[1.0, 0.995, 1.004]), Some(true)).is_none());
         let losses = sum_rule_off(&pts(&[0.99, 0.95, 0.9]), Some(true)).expect("off");
         assert!(losses.message.contains("losses"), "{}", losses.message);
-        // (1 − 2e)² = 0.81 for e = 0.05.
-        let readout = sum_rule_off(&pts(&[0.81, 0.81, 0.81]), Some(true)).expect("off");
+        // 1 − 2e = 0.9 for e = 0.05.
+        let readout = sum_rule_off(&pts(&[0.9, 0.9, 0.9]), Some(true)).expect("off");
         assert!(readout.message.contains("e ≈ 0.050"), "{}", readout.message);
+    }
+
+    #[test]
+    fn readout_error_is_inferred_with_the_estimators_rule() {
+        // A symmetric readout error e = 0.05 on the final measurement scales
+        // C by 1 − p01 − p10 = 0.9 (the rule the shot estimator inverts,
+        // derived in `model::shots`); the diagnosis must infer e = 0.05 back
+        // from a sum rule of 0.9, not 0.026 from (1 − 2e)².
+        let b = crate::model::shots::readout_contrast(0.05, 0.05);
+        let pts: Vec<SumRulePoint> = (0..3)
+            .map(|i| SumRulePoint {
+                t: f64::from(i),
+                sum: b,
+                err: Some(0.001),
+                present: 10,
+            })
+            .collect();
+        let w = sum_rule_off(&pts, Some(true)).expect("off");
+        assert!(w.message.contains("e ≈ 0.050"), "{}", w.message);
+        assert!(w.message.contains("1 − p01 − p10"), "{}", w.message);
     }
 
     #[test]

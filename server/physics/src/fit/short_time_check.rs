@@ -18,7 +18,8 @@
 //! C(0,t) = c0 + c2 t² [+ c4 t⁴] and C(x,t) = d2 t² [+ d4 t⁴] for x = ±1,
 //! by weighted linear least squares (the crate's Levenberg–Marquardt engine
 //! with the analytic Jacobian; one step). The intercept c0 is free: a
-//! readout error scales every C by about (1 − 2e)² (physics notes), so the
+//! readout error of the final measurement scales every C by the constant
+//! 1 − p01 − p10 (the rule of `model::shots`), so the
 //! couplings are read from the *normalised* curvatures
 //! Σ_b K_0b² = −c2/c0 and K_{0,x}² = d2/c0, errors by first-order
 //! propagation with the covariance of (c0, c2). Keeping the t⁴ term reduces

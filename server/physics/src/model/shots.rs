@@ -963,8 +963,26 @@ fn calibrate(
     }
 }
 
+/// The factor b = 1 − p01 − p10 by which a readout error of the final
+/// measurement scales the connected C (module documentation, "Readout
+/// correction"). The one rule used wherever a readout error is inferred.
+#[must_use]
+pub fn readout_contrast(p01: f64, p10: f64) -> f64 {
+    1.0 - p01 - p10
+}
+
+/// The symmetric readout error e (p01 = p10 = e) that scales C by the factor
+/// `contrast`: the inverse of [`readout_contrast`], e = (1 − b)/2.
+#[must_use]
+pub fn symmetric_readout_error(contrast: f64) -> f64 {
+    (1.0 - contrast) / 2.0
+}
+
 fn contrast(p01: &[f64], p10: &[f64]) -> Vec<f64> {
-    p01.iter().zip(p10).map(|(a, b)| 1.0 - a - b).collect()
+    p01.iter()
+        .zip(p10)
+        .map(|(&a, &b)| readout_contrast(a, b))
+        .collect()
 }
 
 fn evaluate(records: &ShotRecords, plan: &Plan, weights: &[u32]) -> Result<Evaluation, String> {
