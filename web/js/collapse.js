@@ -405,7 +405,7 @@ function bestFrom(fit) {
   return {
     z: z.value,
     err: z.err ?? z.err_bootstrap ?? null,
-    errText: source === "bootstrap" ? "bootstrap one sigma" : source === "curvature" ? "width of the minimum" : "one sigma",
+    errText: source === "bootstrap" ? "bootstrap one sigma" : source === "profile" ? "one sigma from the χ² profile" : "one sigma",
     quality: typeof qv === "number" ? qv : null,
     scan,
     windows: {

@@ -13,7 +13,7 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value, json};
 use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::fit::analysis::{AnalysisError, AnalysisOptions, analyze_with_progress};
-use spreadscope_physics::fit::collapse::{CollapseOptions, CollapseQuality};
+use spreadscope_physics::fit::collapse::{CollapseError, CollapseOptions, CollapseQuality};
 use spreadscope_physics::fit::lattice_walk_fit::{LatticeWalkFitOptions, fit_lattice_walk};
 use spreadscope_physics::fit::profile::{
     ProfileModel, ProfileOptions, compare_profiles, fit_profile,
@@ -414,23 +414,46 @@ fn compute(
         }
         FitMethod::Collapse => {
             let quality_fn = CollapseQuality::new(map).map_err(bad)?;
-            if !progress(0.0) {
-                return Err(ServiceError::Cancelled);
-            }
             let report = quality_fn
-                .best(&CollapseOptions {
-                    z_min: options.z_min,
-                    z_max: options.z_max,
-                    bootstrap_resamples: options.bootstrap,
-                    seed: options.seed,
-                    ..CollapseOptions::default()
-                })
-                .map_err(bad)?;
+                .best_with_progress(
+                    &CollapseOptions {
+                        z_min: options.z_min,
+                        z_max: options.z_max,
+                        bootstrap_resamples: options.bootstrap,
+                        seed: options.seed,
+                        ..CollapseOptions::default()
+                    },
+                    progress,
+                )
+                .map_err(|e| match e {
+                    CollapseError::Cancelled => ServiceError::Cancelled,
+                    other => bad(other),
+                })?;
             let mut z = param(report.z, report.z_err);
             z.err_bootstrap = report.z_err_bootstrap;
+            z.interval = Some(report.z_interval);
+            z.bias = report.z_bias;
             parameters.insert("z".into(), z);
+            if report.d.is_finite() {
+                let mut d = param(report.d, report.d_err);
+                d.err_bootstrap = report.d_err.is_finite().then_some(report.d_err);
+                d.interval = report.d_err.is_finite().then_some(report.d_interval);
+                d.bias = report.d_bias;
+                parameters.insert("D".into(), d);
+            }
             quality.insert("collapse_quality".into(), json!(report.quality_min));
+            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
             quality.insert("n_points".into(), json!(report.n_points));
+            if report.poor_fit {
+                warnings.push(format!(
+                    "the curves do not fall on one master curve within their errors \
+                     (χ²/dof = {:.2}): errors scaled by √(χ²/dof)",
+                    report.chi2_dof
+                ));
+            }
+            if !report.d_err.is_finite() && report.d.is_finite() {
+                warnings.push("D has no error without the bootstrap".into());
+            }
             if !report.errors_known {
                 warnings.push(
                     "the map has no errors: the collapse quality is not in units of the noise"

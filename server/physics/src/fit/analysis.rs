@@ -313,20 +313,14 @@ impl Steps<'_> {
     }
 }
 
-/// The collapse with a progress hook. The collapse of this branch has no
-/// inner hook yet: the hook is asked before the search, and the caller
-/// checks it again after. With the collapse that offers
-/// `best_with_progress(options, progress)` (calling `progress(fraction)`
-/// after each bootstrap replicate), the body becomes that one call.
+/// The collapse with the analysis's progress hook (asked after each
+/// bootstrap replicate; a stop cancels within one replicate).
 fn collapse_best(
     quality: &CollapseQuality,
     options: &CollapseOptions,
     progress: &(dyn Fn(f64) -> bool + Sync),
 ) -> Result<CollapseReport, CollapseError> {
-    if !progress(0.0) {
-        return Err(CollapseError::TooFewCurves(0));
-    }
-    quality.best(options)
+    quality.best_with_progress(options, progress)
 }
 
 /// Runs every estimator on `map` with the windows of the module
@@ -348,6 +342,7 @@ struct Quick {
     tail: Option<f64>,
     width: Option<f64>,
     collapse: Option<f64>,
+    collapse_d: Option<f64>,
     gaussian_d: Option<f64>,
     stable: Option<(f64, f64)>,
     second_moment: Option<f64>,
@@ -369,18 +364,19 @@ fn quick(map: &CorrelationMap, bounds: Bounds, front: bool) -> Quick {
         )
         .ok()
     };
+    let collapse = CollapseQuality::new(&m)
+        .and_then(|q| {
+            q.best(&CollapseOptions {
+                bootstrap_resamples: 0,
+                ..CollapseOptions::default()
+            })
+        })
+        .ok();
     Quick {
         tail: fit_tail(&m, TimeWindow::default()).ok().map(|r| r.z),
         width: fit_width(&m, WidthOptions::default()).ok().map(|r| r.z),
-        collapse: CollapseQuality::new(&m)
-            .and_then(|q| {
-                q.best(&CollapseOptions {
-                    bootstrap_resamples: 0,
-                    ..CollapseOptions::default()
-                })
-            })
-            .ok()
-            .map(|r| r.z),
+        collapse: collapse.as_ref().map(|r| r.z),
+        collapse_d: collapse.as_ref().map(|r| r.d).filter(|d| d.is_finite()),
         gaussian_d: profile.as_ref().map(|c| c.gaussian.d),
         stable: profile.as_ref().map(|c| (c.stable.mu, c.stable.d)),
         second_moment: second_moment(&m).ok().map(|f| f.z),
@@ -1082,18 +1078,22 @@ fn lines(inputs: &LineInputs<'_>) -> Vec<EstimatorLine> {
         });
     }
 
-    // Collapse. D stays with the profile fit until the collapse fits D
-    // itself; then `d` below becomes that estimate (one line).
+    // Collapse: z and D from the master-curve fit; its errors already
+    // carry the √(χ²/dof) scaling of a poor fit.
     match inputs.collapse {
         Some(c) => {
             let f = &c.fit;
-            let err = f.z_err_bootstrap.unwrap_or(f.z_err);
-            let scale = f.errors_known.then_some(c.quality);
-            let mut z = with_sys(Measured::new(f.z, err, scale), &fam(|q| q.collapse));
-            if let Some(b) = &f.bootstrap {
-                z.interval = Some([b.lower, b.upper]);
-                z.bias = Some(b.mean - f.z);
-            }
+            let mut z = with_sys(Measured::new(f.z, f.z_err, None), &fam(|q| q.collapse));
+            z.interval = Some(f.z_interval);
+            z.bias = f.z_bias;
+            z.err_scale = f.err_scale;
+            let d = f.d.is_finite().then(|| {
+                let mut d = with_sys(Measured::new(f.d, f.d_err, None), &fam(|q| q.collapse_d));
+                d.interval = f.d_err.is_finite().then_some(f.d_interval);
+                d.bias = f.d_bias;
+                d.err_scale = f.err_scale;
+                d
+            });
             let (standing, detail) = if f.termination == Termination::MinimumAtBoundary {
                 (
                     Standing::AtBound,
@@ -1101,21 +1101,28 @@ fn lines(inputs: &LineInputs<'_>) -> Vec<EstimatorLine> {
                 )
             } else if !choice.asymptotic {
                 (Standing::Saturated, choice.rule.clone())
-            } else if f.errors_known && c.quality > POOR_FIT_ABOVE {
+            } else if f.errors_known && f.chi2_dof > POOR_FIT_ABOVE {
                 (
                     Standing::PoorFit,
-                    format!("S_min = {:.3}, errors scaled by √S_min", c.quality),
+                    format!(
+                        "the curves do not fall on one master curve: χ²/dof = {:.3}, \
+                         errors scaled by √(χ²/dof)",
+                        f.chi2_dof
+                    ),
                 )
             } else {
                 (
                     Standing::Applies,
-                    format!("S_min = {:.3}, error: {}", c.quality, f.z_err_source),
+                    format!(
+                        "master-curve χ²/dof = {:.3}, S = {:.3}, error: {}",
+                        f.chi2_dof, c.quality, f.z_err_source
+                    ),
                 )
             };
             out.push(EstimatorLine {
                 name: "scaling collapse",
                 z: Some(z),
-                d: None,
+                d,
                 standing,
                 detail,
             });
@@ -1335,7 +1342,7 @@ fn diagnose(map: &CorrelationMap, inputs: &DiagnosisInputs<'_>, warnings: &mut V
     }
     if let Some(collapse) = inputs.collapse {
         warnings.extend(diagnosis::poor_collapse(
-            collapse.quality_min,
+            collapse.chi2_dof,
             collapse.errors_known,
         ));
     }

@@ -184,20 +184,21 @@ pub fn poor_fit(
     })
 }
 
-/// A poor collapse: the Houdayer–Hartmann quality S_min exceeds
-/// [`POOR_FIT_CHI2_DOF`] although the data carry errors (S ≈ 1 for curves
-/// that agree within their errors). Without errors S has no absolute scale
-/// and no warning is given.
+/// A poor collapse: the master-curve fit of the collapse leaves χ²/dof
+/// above [`POOR_FIT_CHI2_DOF`] although the data carry errors (≈ 1 for
+/// curves that fall on one curve within their errors). Without errors χ²
+/// has no absolute scale and no warning is given.
 #[must_use]
-pub fn poor_collapse(quality: f64, errors_known: bool) -> Option<Warning> {
-    if !(errors_known && quality > POOR_FIT_CHI2_DOF) {
+pub fn poor_collapse(chi2_dof: f64, errors_known: bool) -> Option<Warning> {
+    if !(errors_known && chi2_dof > POOR_FIT_CHI2_DOF) {
         return None;
     }
     Some(Warning {
         code: WarningCode::PoorFit,
         message: format!(
-            "The scaling collapse has quality S = {quality:.2} at its best z (≈ 1 expected): the \
-             rescaled curves do not fall on one curve within their errors."
+            "The scaling collapse leaves χ²/dof = {chi2_dof:.2} against its master curve at the \
+             best z (≈ 1 expected): the rescaled curves do not fall on one curve within their \
+             errors."
         ),
         advice: "Scaling does not hold across the whole window: start it later, restrict |x| to \
                  the bulk, or look for a drift of the local exponent."
