@@ -368,6 +368,8 @@ fn quick(map: &CorrelationMap, bounds: Bounds, front: bool) -> Quick {
         .and_then(|q| {
             q.best(&CollapseOptions {
                 bootstrap_resamples: 0,
+                quality: false,
+                quality_scan: false,
                 ..CollapseOptions::default()
             })
         })
@@ -632,9 +634,11 @@ pub fn analyze_with_progress(
 
     // The collapse, the profile fits, the lattice-walk fit and the window
     // family are independent: run them side by side.
+    // The S(z) picture belongs to the collapse view's own fit, not here.
     let collapse_options = CollapseOptions {
         bootstrap_resamples: options.bootstrap,
         seed: options.seed,
+        quality_scan: false,
         ..CollapseOptions::default()
     };
     let profile_options = ProfileOptions {
@@ -911,6 +915,8 @@ fn picture(
                 .and_then(|q| {
                     q.best(&CollapseOptions {
                         bootstrap_resamples: 0,
+                        quality: false,
+                        quality_scan: false,
                         ..CollapseOptions::default()
                     })
                     .ok()
