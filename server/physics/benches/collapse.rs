@@ -62,9 +62,13 @@ fn main() {
         quality_scan: false,
         ..CollapseOptions::default()
     };
-    time_per_call("best(), z and D only (no S), no bootstrap, 101 x 60", 10, |_| {
-        black_box(quality.best(&fit_only).expect("runs"));
-    });
+    time_per_call(
+        "best(), z and D only (no S), no bootstrap, 101 x 60",
+        10,
+        |_| {
+            black_box(quality.best(&fit_only).expect("runs"));
+        },
+    );
     time_per_call("best(), default bootstrap (100), 101 x 60", 3, |_| {
         black_box(quality.best(&CollapseOptions::default()).expect("runs"));
     });

@@ -378,8 +378,8 @@ impl CollapseQuality {
         // a first guess of the width from the curvature at the minimum sets
         // the root finder's tolerance.
         let h = 1e-3 * (z_max - z_min);
-        let curvature = (chi2((z - h).max(z_min)) - 2.0 * fit.chi2 + chi2((z + h).min(z_max)))
-            / (h * h);
+        let curvature =
+            (chi2((z - h).max(z_min)) - 2.0 * fit.chi2 + chi2((z + h).min(z_max))) / (h * h);
         let width_guess = if curvature > 0.0 {
             (2.0 * err_scale * err_scale / curvature).sqrt()
         } else {
