@@ -93,6 +93,46 @@ async fn collapse_fit_and_slider_quality_find_z_two() {
 }
 
 #[tokio::test]
+async fn collapse_fit_gives_d_and_the_slider_measures_the_same_default_window() {
+    // The Gaussian of the shared helper is exp(−x²/(4Dt))/√(4πDt) with
+    // D = 1/2 (σ² = 2Dt; physics notes, closed form), so the collapse must
+    // return z = 2 and D = 1/2.
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let body = json!({"method": "collapse", "options": {"bootstrap": 10, "seed": 1}});
+    let (status, fit) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/{id}/fits"),
+        body.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    let z = fit["parameters"]["z"]["value"].as_f64().expect("z");
+    let d = fit["parameters"]["D"]["value"].as_f64().expect("D");
+    assert!((z - 2.0).abs() < 1e-3, "z = {z}");
+    assert!((d - 0.5).abs() < 5e-3, "D = {d}");
+    assert!(fit["parameters"]["D"]["err"].as_f64().is_some(), "{fit}");
+    // No window given: the slider closes it with the same rule as the fit,
+    // so S at the fitted z is the fit's S.
+    let (status, slider) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{edit}/datasets/{id}/collapse-quality?z={z}"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{slider}");
+    let s_fit = fit["quality"]["collapse_quality"].as_f64().expect("S");
+    let s_slider = slider["quality"].as_f64().expect("S");
+    assert!(
+        (s_fit - s_slider).abs() <= 1e-9 * s_fit.abs().max(1.0),
+        "fit S = {s_fit}, slider S = {s_slider}"
+    );
+}
+
+#[tokio::test]
 async fn bad_fit_requests_name_their_field() {
     let app = app().await;
     let (edit, _) = new_session(&app.router).await;
