@@ -514,3 +514,59 @@ async fn a_running_analysis_reports_steps_and_stops_when_cancelled() {
     let (status, body) = running.await.expect("joins");
     assert_eq!(status, StatusCode::CONFLICT, "{body}");
 }
+
+#[tokio::test]
+async fn a_running_collapse_reports_each_replicate_and_stops_when_cancelled() {
+    use http_body_util::BodyExt;
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let mut events = open_events(&app.router, &edit).await.into_body();
+    let router = app.router.clone();
+    let uri = format!("/api/s/{edit}/datasets/{id}/fits");
+    // Far more replicates than can finish before the cancel arrives.
+    let running = tokio::spawn(async move {
+        send_json(
+            &router,
+            Method::POST,
+            &uri,
+            json!({"method": "collapse", "job": "job-r", "options": {"bootstrap": 20000}})
+                .to_string(),
+        )
+        .await
+    });
+    // Progress moves through the replicates: several distinct fractions
+    // strictly between start and end.
+    let mut inside: Vec<f64> = Vec::new();
+    while inside.len() < 3 {
+        let frame = tokio::time::timeout(std::time::Duration::from_secs(60), events.frame())
+            .await
+            .expect("events arrive")
+            .expect("frame")
+            .expect("ok");
+        let text = String::from_utf8(frame.into_data().expect("data").to_vec()).expect("utf-8");
+        for v in text
+            .lines()
+            .filter_map(|l| l.strip_prefix("data: "))
+            .filter_map(|l| serde_json::from_str::<Value>(l).ok())
+        {
+            if v["kind"] == "job-progress" && v["job"] == "job-r" {
+                let f = v["fraction"].as_f64().expect("fraction");
+                if f > 0.0 && f < 1.0 && !inside.contains(&f) {
+                    inside.push(f);
+                }
+            }
+        }
+    }
+    assert!(inside.windows(2).all(|w| w[1] > w[0]), "{inside:?}");
+    let (_, cancel) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/jobs/job-r/cancel"),
+        "",
+    )
+    .await;
+    assert_eq!(cancel["cancelled"], true);
+    let (status, body) = running.await.expect("joins");
+    assert_eq!(status, StatusCode::CONFLICT, "{body}");
+}
