@@ -635,3 +635,37 @@ async fn a_cached_log_never_hides_a_newer_pin() {
         }
     }
 }
+
+#[tokio::test]
+async fn fits_of_a_map_estimated_from_shots_say_its_points_are_correlated() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let shots = std::fs::read(crate::support::repo_path("tests/reference/shots/shots.csv"))
+        .expect("fixture");
+    let uri = format!("/api/s/{edit}/shots?name=run.csv&bootstrap=10&source=0");
+    let (_, summary) = send_json(&app.router, Method::POST, &uri, shots).await;
+    let id = summary["id"].as_i64().expect("id");
+    let map =
+        crate::support::upload_csv(&app.router, &edit, "g.csv", crate::support::gaussian_csv())
+            .await;
+    for (dataset, expected) in [(id, true), (map, false)] {
+        let (status, fit) = send_json(
+            &app.router,
+            Method::POST,
+            &format!("/api/s/{edit}/datasets/{dataset}/fits"),
+            serde_json::json!({"method": "collapse", "windows": {"t_min": 0.1}, "options": {"bootstrap": 0}})
+                .to_string(),
+        )
+        .await;
+        assert_eq!(status, StatusCode::OK, "{fit}");
+        let warned = fit["warnings"]
+            .as_array()
+            .expect("warnings")
+            .iter()
+            .any(|w| {
+                w.as_str()
+                    .is_some_and(|s| s.contains("estimated from shot records"))
+            });
+        assert_eq!(warned, expected, "{fit}");
+    }
+}
