@@ -801,6 +801,12 @@ fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed
     let mut d = param(chosen.d, chosen.d_err);
     d.err_bootstrap = chosen.d_err_bootstrap;
     parameters.insert("D".into(), d);
+    // The profile is narrowest at the window's start: s = (D t_min)^{1/μ}.
+    let t_min = chosen.t_window[0];
+    let scale = (chosen.d * t_min).powf(1.0 / chosen.mu);
+    if let Some(w) = spreadscope_physics::fit::diagnosis::lattice_scale(chosen.mu, scale, t_min) {
+        warnings.push(w.message);
+    }
     let mut mu = param(chosen.mu, chosen.mu_err);
     mu.err_bootstrap = chosen.mu_err_bootstrap;
     if chosen.model == ProfileModel::Gaussian {
