@@ -14,7 +14,9 @@ use serde_json::{Map, Value, json};
 use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::fit::analysis::{AnalysisError, AnalysisOptions, analyze_with_progress};
 use spreadscope_physics::fit::collapse::{CollapseError, CollapseOptions, CollapseQuality};
-use spreadscope_physics::fit::lattice_walk_fit::{LatticeWalkFitOptions, fit_lattice_walk};
+use spreadscope_physics::fit::lattice_walk_fit::{
+    LatticeWalkFitOptions, fit_lattice_walk, walk_window_start,
+};
 use spreadscope_physics::fit::profile::{
     ProfileModel, ProfileOptions, compare_profiles, fit_profile,
 };
@@ -865,7 +867,12 @@ impl Service {
                     x_max: choice.x_max,
                 }
             }
-            FitMethod::LatticeWalk | FitMethod::ShortTime | FitMethod::Analysis => request.windows,
+            // The walk starts a few coherence times in unless asked otherwise.
+            FitMethod::LatticeWalk => Windows {
+                t_min: request.windows.t_min.or_else(|| walk_window_start(&full)),
+                ..request.windows
+            },
+            FitMethod::ShortTime | FitMethod::Analysis => request.windows,
         };
         let family: Vec<Windows> = match method {
             FitMethod::Tail | FitMethod::Width | FitMethod::Collapse | FitMethod::Profile => {
@@ -881,6 +888,12 @@ impl Service {
             _ => Vec::new(),
         };
         let rule = match method {
+            FitMethod::LatticeWalk if request.windows.t_min.is_none() && used.t_min.is_some() => {
+                "from three coherence times in (where C(0,t) has fallen to 1/e, times three): \
+                 before that the dynamics is coherent, not a walk; every later time within the \
+                 request's bounds"
+                    .to_string()
+            }
             FitMethod::LatticeWalk | FitMethod::ShortTime => {
                 "the request's bounds (this fit models every time)".to_string()
             }

@@ -52,7 +52,9 @@ use crate::fit::diagnosis::{
     self, Edges, SUM_RULE_TOLERANCE, Warning, WarningCode, ZEstimate, estimator_failed, plus_minus,
     poor_fit,
 };
-use crate::fit::lattice_walk_fit::{LatticeWalkFitOptions, LatticeWalkFitReport, fit_lattice_walk};
+use crate::fit::lattice_walk_fit::{
+    LatticeWalkFitOptions, LatticeWalkFitReport, fit_lattice_walk, walk_window_start,
+};
 use crate::fit::profile::{
     ProfileComparison, ProfileModel, ProfileOptions, ProfileReport, compare_profiles, fit_profile,
 };
@@ -646,8 +648,14 @@ pub fn analyze_with_progress(
         seed: options.seed,
         ..ProfileOptions::default()
     };
+    // The walk window starts a few coherence times in unless the user set
+    // its start (see `walk_window_start`).
     let walk_map = match run_walk {
-        Some(_) => Some(map.window(options.t_min, options.t_max, options.x_max)?),
+        Some(_) => Some(map.window(
+            options.t_min.or_else(|| walk_window_start(map)),
+            options.t_max,
+            options.x_max,
+        )?),
         None => None,
     };
     let walk_family: Vec<CorrelationMap> = walk_map
