@@ -570,3 +570,41 @@ async fn a_running_collapse_reports_each_replicate_and_stops_when_cancelled() {
     let (status, body) = running.await.expect("joins");
     assert_eq!(status, StatusCode::CONFLICT, "{body}");
 }
+
+#[tokio::test]
+async fn d_follows_the_requested_convention_in_collapse_and_profile_fits() {
+    // The helper's Gaussian has D = 1/2 in s(t) = (D t)^{1/z}; written as
+    // s(t) = D' t^{1/z} it is D' = D^{1/2} = 0.7071 (z = 2; physics notes).
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    for method in ["collapse", "profile"] {
+        for (convention, expected) in [("rate", 0.5), ("prefactor", 0.5f64.sqrt())] {
+            let body =
+                json!({"method": method, "options": {"bootstrap": 4, "d_convention": convention}});
+            let (status, fit) = send_json(
+                &app.router,
+                Method::POST,
+                &format!("/api/s/{edit}/datasets/{id}/fits"),
+                body.to_string(),
+            )
+            .await;
+            assert_eq!(status, StatusCode::OK, "{fit}");
+            let d = fit["parameters"]["D"]["value"].as_f64().expect("D");
+            assert!(
+                (d - expected).abs() < 5e-3,
+                "{method} {convention}: D = {d}"
+            );
+            assert!(
+                fit["d_convention"]
+                    .as_str()
+                    .is_some_and(|w| w.contains(if convention == "rate" {
+                        "(D t)"
+                    } else {
+                        "D t^"
+                    })),
+                "{fit}"
+            );
+        }
+    }
+}

@@ -15,7 +15,7 @@ use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::model::stable::StableDensity;
 
 use crate::cli::CliError;
-use crate::ingest::couplings::{CouplingsImportOptions, parse_couplings};
+use crate::ingest::couplings::{CouplingConvention, CouplingsImportOptions, parse_couplings};
 use crate::service::CONVENTIONS;
 use crate::service::theory::{ModelSpec, SpinMethod, TheoryModel, model_map};
 
@@ -52,6 +52,11 @@ pub struct SimulateArgs {
     /// A measured N×N coupling matrix (CSV) replacing the power law.
     #[arg(long)]
     pub coupling_matrix: Option<PathBuf>,
+    /// The Hamiltonian the matrix file is written for: `flip-flop`
+    /// (J(σ⁺σ⁻ + h.c.), as stored), `pauli-xy` (J(σˣσˣ + σʸσʸ), doubled) or
+    /// `spin-xy` (J(SˣSˣ + SʸSʸ), halved).
+    #[arg(long, value_enum, default_value_t = CouplingConvention::FlipFlop)]
+    pub coupling_convention: CouplingConvention,
     /// Stable index μ = z of the `stable` model (0.3 ≤ μ ≤ 2).
     #[arg(long, default_value_t = 2.0)]
     pub mu: f64,
@@ -136,18 +141,26 @@ pub fn to_long_csv(map: &CorrelationMap, header: &[String]) -> String {
 /// Bad options (exit 2) or a failure writing the file.
 pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     let times = parse_times(&args.times).map_err(CliError::Input)?;
-    let matrix = match &args.coupling_matrix {
-        None => None,
+    let (matrix, matrix_notes) = match &args.coupling_matrix {
+        None => (None, Vec::new()),
         Some(path) => {
             let name = path.display().to_string();
             let file = std::fs::File::open(path)
                 .map_err(|e| CliError::Input(format!("--coupling-matrix {name}: {e}")))?;
             let read = parse_couplings(
                 std::io::BufReader::new(file),
-                &CouplingsImportOptions::default(),
+                &CouplingsImportOptions {
+                    convention: args.coupling_convention,
+                    ..CouplingsImportOptions::default()
+                },
             )
             .map_err(|e| CliError::Input(format!("--coupling-matrix {name}: {e}")))?;
-            Some(read.couplings)
+            let notes = read
+                .notes
+                .iter()
+                .map(|n| format!("notes: coupling matrix {name}: {n}"))
+                .collect();
+            (Some(read.couplings), notes)
         }
     };
     let sites = match &matrix {
@@ -224,6 +237,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     ]
     .into_iter()
     .chain((args.coupling_matrix.is_none()).then(|| format!("alpha: {alpha_text}")))
+    .chain(matrix_notes)
     .chain(std::iter::once(format!("notes: simulated ({how})")))
     .collect::<Vec<_>>();
     std::fs::write(&args.out, to_long_csv(&map, &header))

@@ -205,6 +205,25 @@ fn param(value: f64, err: f64) -> Parameter {
     }
 }
 
+/// D in the requested convention from the rate convention's D at exponent
+/// z: value, interval and bias mapped by D ↦ D^{1/z}, errors to first order
+/// (`DConvention::convert`).
+fn d_in(mut p: Parameter, z: f64, convention: DConvention) -> Parameter {
+    if convention == DConvention::Rate {
+        return p;
+    }
+    let rate = p.value;
+    let map = |v: f64| convention.convert(v, 0.0, z).0;
+    let (value, _) = convention.convert(rate, 0.0, z);
+    p.err = p.err.map(|e| convention.convert(rate, e, z).1);
+    p.err_bootstrap = p.err_bootstrap.map(|e| convention.convert(rate, e, z).1);
+    p.err_sys = p.err_sys.map(|e| convention.convert(rate, e, z).1);
+    p.interval = p.interval.map(|[a, b]| [map(a), map(b)]);
+    p.bias = p.bias.map(|b| map(rate + b) - value);
+    p.value = value;
+    p
+}
+
 /// A parameter from an estimator line's measurement.
 fn measured(m: &spreadscope_physics::fit::verdict::Measured) -> Parameter {
     Parameter {
@@ -448,7 +467,7 @@ fn compute(
                 d.err_bootstrap = report.d_err.is_finite().then_some(report.d_err);
                 d.interval = report.d_err.is_finite().then_some(report.d_interval);
                 d.bias = report.d_bias;
-                parameters.insert("D".into(), d);
+                parameters.insert("D".into(), d_in(d, report.z, options.d_convention));
             }
             quality.insert("collapse_quality".into(), json!(report.quality_min));
             quality.insert("chi2_dof".into(), json!(report.chi2_dof));
@@ -802,7 +821,7 @@ fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed
     };
     let mut d = param(chosen.d, chosen.d_err);
     d.err_bootstrap = chosen.d_err_bootstrap;
-    parameters.insert("D".into(), d);
+    parameters.insert("D".into(), d_in(d, chosen.mu, options.d_convention));
     // The profile is narrowest at the window's start: s = (D t_min)^{1/μ}.
     let t_min = chosen.t_window[0];
     let scale = (chosen.d * t_min).powf(1.0 / chosen.mu);

@@ -12,7 +12,7 @@ use spreadscope_physics::model::shots::{
 
 use super::{Access, DatasetSummary, Service, ServiceError, ServiceResult, StoredDataset};
 use crate::dataset::DatasetMeta;
-use crate::ingest::couplings::{CouplingsImportOptions, parse_couplings};
+use crate::ingest::couplings::{CouplingConvention, CouplingsImportOptions, parse_couplings};
 use crate::ingest::shots::{ShotFormat, ShotsIngested};
 
 /// Estimator options as people type them (query string or command line).
@@ -229,11 +229,18 @@ impl Service {
     /// # Errors
     /// Invalid with every problem of the file; BadRequest when the fit is
     /// impossible.
-    pub async fn couplings(&self, bytes: Vec<u8>) -> ServiceResult<Value> {
+    pub async fn couplings(
+        &self,
+        bytes: Vec<u8>,
+        convention: CouplingConvention,
+    ) -> ServiceResult<Value> {
         self.heavy(move || {
             let read = parse_couplings(
                 std::io::Cursor::new(bytes),
-                &CouplingsImportOptions::default(),
+                &CouplingsImportOptions {
+                    convention,
+                    ..CouplingsImportOptions::default()
+                },
             )
             .map_err(ServiceError::Invalid)?;
             let fit = fit_power_law(&read.couplings, None, &CouplingsFitOptions::default())
