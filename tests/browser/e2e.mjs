@@ -730,6 +730,21 @@ async function main() {
       });
     }
 
+    await check("the autocorrelation view draws the local exponent with its band and the reference lines", async () => {
+      await page.click("#tab-auto");
+      await page.waitForFunction(() => document.querySelector("#view-auto-zeff.js-plotly-plot") !== null, null, { timeout: 30000 });
+      const drawn = await page.evaluate(() => {
+        const gd = /** @type {any} */ (document.querySelector("#view-auto-zeff"));
+        return {
+          names: (gd.data ?? []).map((/** @type {any} */ t) => String(t.name ?? "")),
+          lines: (gd.layout?.shapes ?? []).map((/** @type {any} */ s) => Number(s.y0)),
+        };
+      });
+      assert(drawn.names.some((n) => n.includes("z_eff")), `no z_eff trace: ${drawn.names.join(", ")}`);
+      assert(drawn.names.some((n) => n.includes("±")), `no error band: ${drawn.names.join(", ")}`);
+      assert(drawn.lines.includes(1) && drawn.lines.includes(2), `reference lines at ${drawn.lines.join(", ")}`);
+    });
+
     await check("dragging across the autocorrelation sets the time window, across the slices the |x| window", async () => {
       await page.click("#tab-auto");
       await page.waitForFunction(() => document.querySelector("#view-auto.js-plotly-plot .nsewdrag") !== null);
