@@ -25,6 +25,8 @@ import { plainMessage } from "./words.js";
  * @property {boolean} nearest_neighbour
  * @property {number | null} chain_length
  * @property {number | null} source_site
+ * @property {[number, number] | null} source_window first and last source of a window mean
+ * @property {boolean} symmetrised
  * @property {string} time_unit
  * @property {string} notes
  * @property {boolean} synthetic

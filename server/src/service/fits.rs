@@ -15,7 +15,7 @@ use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::fit::analysis::{AnalysisError, AnalysisOptions, analyze_with_progress};
 use spreadscope_physics::fit::collapse::{CollapseError, CollapseOptions, CollapseQuality};
 use spreadscope_physics::fit::lattice_walk_fit::{
-    LatticeWalkFitOptions, fit_lattice_walk, walk_window_start,
+    LatticeWalkFitOptions, SourceAverage, fit_lattice_walk, walk_window_start,
 };
 use spreadscope_physics::fit::profile::{
     ProfileModel, ProfileOptions, compare_profiles, fit_profile,
@@ -364,6 +364,21 @@ impl FitInput {
             .unwrap_or(sites.saturating_sub(1) / 2);
         Ok((sites, source))
     }
+
+    /// The window of sources the map averages (from the metadata), unless
+    /// the request names one source.
+    fn average(&self, options: &FitOptions) -> Option<SourceAverage> {
+        average_of(&self.meta, options)
+    }
+}
+
+/// The metadata's window of sources, unless the request names one source.
+fn average_of(meta: &crate::dataset::DatasetMeta, options: &FitOptions) -> Option<SourceAverage> {
+    if options.source.is_some() {
+        None
+    } else {
+        meta.source_average()
+    }
 }
 
 /// Said on every fit of a map estimated from shot records.
@@ -500,8 +515,11 @@ fn compute(
         FitMethod::Profile => profile(map, options),
         FitMethod::LatticeWalk => {
             let (sites, source) = input.chain(options)?;
-            let report =
-                fit_lattice_walk(map, &LatticeWalkFitOptions::new(sites, source)).map_err(bad)?;
+            let walk_options = match input.average(options) {
+                Some(a) => LatticeWalkFitOptions::averaged(sites, a),
+                None => LatticeWalkFitOptions::new(sites, source),
+            };
+            let report = fit_lattice_walk(map, &walk_options).map_err(bad)?;
             parameters.insert("gamma0".into(), param(report.gamma0, report.gamma0_err));
             parameters.insert("alpha".into(), param(report.alpha, report.alpha_err));
             parameters.insert("z".into(), param(report.z, report.z_err));
@@ -560,6 +578,7 @@ fn compute(
                     x_max: input.windows.x_max,
                     sites,
                     source: source.filter(|_| sites.is_some()),
+                    average: input.average(options).filter(|_| sites.is_some()),
                     bootstrap: options.bootstrap,
                     seed: options.seed,
                     alpha: input.meta.alpha,
@@ -645,6 +664,7 @@ pub fn default_windows(
         map,
         options.sites.or(meta.chain_length.map(|n| n as usize)),
         options.source.or(meta.source_site.map(|j| j as usize)),
+        average_of(meta, options),
     );
     window_rule::choose(
         map,

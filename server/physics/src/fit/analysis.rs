@@ -53,7 +53,7 @@ use crate::fit::diagnosis::{
     poor_fit,
 };
 use crate::fit::lattice_walk_fit::{
-    LatticeWalkFitOptions, LatticeWalkFitReport, fit_lattice_walk, walk_window_start,
+    LatticeWalkFitOptions, LatticeWalkFitReport, SourceAverage, fit_lattice_walk, walk_window_start,
 };
 use crate::fit::profile::{
     ProfileComparison, ProfileModel, ProfileOptions, ProfileReport, compare_profiles, fit_profile,
@@ -95,6 +95,9 @@ pub struct AnalysisOptions {
     /// Source site j; `None` infers it when the map's offsets span exactly N
     /// sites, and assumes the centre (N − 1)/2 otherwise.
     pub source: Option<usize>,
+    /// The window of sources the map averages (with `sites`; replaces
+    /// `source`).
+    pub average: Option<SourceAverage>,
     /// Bootstrap replicates for the collapse and the profile fits.
     pub bootstrap: usize,
     pub seed: u64,
@@ -115,6 +118,7 @@ impl Default for AnalysisOptions {
             x_max: None,
             sites: None,
             source: None,
+            average: None,
             bootstrap: DEFAULT_BOOTSTRAP,
             seed: 0,
             alpha: None,
@@ -163,6 +167,8 @@ pub struct Windows {
     /// check.
     pub chain_sites: Option<usize>,
     pub source: Option<usize>,
+    /// The window of sources the map averages, when it does.
+    pub source_average: Option<SourceAverage>,
     /// How the chain was obtained, in words.
     pub source_basis: Option<&'static str>,
     /// The neighbouring windows of the window error.
@@ -534,8 +540,14 @@ pub fn analyze_with_progress(
             return Err(AnalysisError::SourceWithoutSites { source_site: s });
         }
     }
-    let chain = windows::chain_of(map, options.sites, options.source);
+    let chain = windows::chain_of(map, options.sites, options.source, options.average);
     if let Some(c) = chain {
+        if let Some(a) = c.average.filter(|a| a.first > a.last || a.last >= c.sites) {
+            return Err(AnalysisError::SourceOutOfRange {
+                source_site: a.last.max(a.first),
+                sites: c.sites,
+            });
+        }
         if c.source >= c.sites {
             return Err(AnalysisError::SourceOutOfRange {
                 source_site: c.source,
@@ -705,9 +717,9 @@ pub fn analyze_with_progress(
             || {
                 rayon::join(
                     || {
-                        let r = run_walk.zip(walk_map.as_ref()).map(|(c, m)| {
-                            fit_lattice_walk(m, &LatticeWalkFitOptions::new(c.sites, c.source))
-                        });
+                        let r = run_walk
+                            .zip(walk_map.as_ref())
+                            .map(|(c, m)| fit_lattice_walk(m, &walk_options(c)));
                         steps.step("lattice-walk fit");
                         r
                     },
@@ -732,12 +744,9 @@ pub fn analyze_with_progress(
                                         walk_family
                                             .par_iter()
                                             .filter_map(|m| {
-                                                fit_lattice_walk(
-                                                    m,
-                                                    &LatticeWalkFitOptions::new(c.sites, c.source),
-                                                )
-                                                .ok()
-                                                .map(|r| r.z)
+                                                fit_lattice_walk(m, &walk_options(c))
+                                                    .ok()
+                                                    .map(|r| r.z)
                                             })
                                             .collect::<Vec<f64>>()
                                     })
@@ -858,6 +867,7 @@ pub fn analyze_with_progress(
             asymptotic: choice.asymptotic,
             chain_sites: chosen_chain.map(|c| c.sites),
             source: chosen_chain.map(|c| c.source),
+            source_average: chosen_chain.and_then(|c| c.average),
             source_basis: chosen_chain.map(|c| c.basis.words()),
             family,
         },
@@ -963,6 +973,15 @@ struct LineInputs<'a> {
     family: &'a [Quick],
     walk_family: &'a [f64],
     evidence: Evidence,
+}
+
+/// The lattice-walk fit's options for the chain: its source, or its
+/// window of sources.
+fn walk_options(chain: Chain) -> LatticeWalkFitOptions {
+    match chain.average {
+        Some(a) => LatticeWalkFitOptions::averaged(chain.sites, a),
+        None => LatticeWalkFitOptions::new(chain.sites, chain.source),
+    }
 }
 
 fn with_sys(mut m: Measured, values: &[f64]) -> Measured {
@@ -1367,7 +1386,7 @@ fn diagnose(map: &CorrelationMap, inputs: &DiagnosisInputs<'_>, warnings: &mut V
     }
 
     let edges = match inputs.chain {
-        Some(c) => Edges::of_chain(c.sites, c.source),
+        Some(c) => c.edges(),
         None => Edges::of_map(map),
     };
     warnings.extend(diagnosis::reaches_edges(map, inputs.window, edges));
@@ -1393,7 +1412,7 @@ fn diagnose(map: &CorrelationMap, inputs: &DiagnosisInputs<'_>, warnings: &mut V
 
     let covers_chain = inputs.chain.map(|c| {
         let x = map.offsets();
-        let edges = Edges::of_chain(c.sites, c.source);
+        let edges = c.edges();
         x[0] <= edges.left && x[x.len() - 1] >= edges.right
     });
     warnings.extend(diagnosis::sum_rule_off(inputs.sum_points, covers_chain));
@@ -1460,7 +1479,19 @@ impl AnalysisReport {
             w.rule
         );
         if let (Some(n), Some(s), Some(b)) = (w.chain_sites, w.source, w.source_basis) {
-            let _ = writeln!(out, "chain     {n} sites, source {s} ({b})");
+            match w.source_average {
+                Some(a) => {
+                    let symmetrised = if a.symmetrised { ", symmetrised" } else { "" };
+                    let _ = writeln!(
+                        out,
+                        "chain     {n} sites, mean over sources {}–{}{symmetrised} ({b})",
+                        a.first, a.last
+                    );
+                }
+                None => {
+                    let _ = writeln!(out, "chain     {n} sites, source {s} ({b})");
+                }
+            }
         }
         let _ = writeln!(out);
         let _ = writeln!(
