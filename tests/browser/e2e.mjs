@@ -419,6 +419,34 @@ async function main() {
       });
     }
 
+    if (following) {
+      await check("a map pushed by a script from outside the browsers appears on both open pages without reloading (measured); a retry stores nothing new", async () => {
+        const url = new URL(args.url);
+        const token = url.pathname.split("/").filter(Boolean).pop();
+        const name = "pushed by a script (e2e, synthetic)";
+        const push = () =>
+          fetch(`${url.origin}/api/s/${token}/datasets?name=${encodeURIComponent(name)}&format=csv`, {
+            method: "POST",
+            headers: { "Idempotency-Key": "e2e-push-once" },
+            body: "# synthetic: yes\nx,t,C\n0,0,1\n-1,1,0.2\n0,1,0.6\n1,1,0.2\n",
+          });
+        const started = Date.now();
+        const response = await push();
+        const stored = await response.json();
+        assert(response.status === 201, `the push answered ${response.status}: ${JSON.stringify(stored)}`);
+        const id = String(stored.id);
+        await Promise.all(
+          [page, follower].map((p) => p.locator(`#dataset-list li[data-dataset-id="${id}"]`).waitFor({ timeout: args.timeout })),
+        );
+        measurements.push(`a push shown on both open pages after ${Date.now() - started} ms`);
+        const retry = await push();
+        const again = await retry.json();
+        assert(retry.status === 200 && String(again.id) === id && again.already_stored === true, `the retry answered ${retry.status}: ${JSON.stringify(again)}`);
+        const listed = await page.locator("#dataset-list li", { hasText: name }).count();
+        assert(listed === 1, `the pushed map is listed ${listed} times`);
+      });
+    }
+
     // ---------------------------------------------------------------- collapse
     /** The synthetic 60 × 101 map. @type {string | null} */
     let gridId = null;
@@ -1211,6 +1239,24 @@ async function startPageChecks(origin, profile, dashboard, timeout) {
         performance.getEntriesByType("resource").filter((r) => r.name.includes("/vendor/")).map((r) => /** @type {PerformanceResourceTiming} */ (r).encodedBodySize),
       );
       measurements.push(`first load to the first drawn figure: ${drawn} ms (plotting bundle ${scripts.join(", ")} bytes)`);
+    });
+    await check("the dashboard offers the whole session as an archive, and the start page imports it as a new session", async () => {
+      const href = await page.locator("#archive-link").getAttribute("href");
+      assert(href !== null && href.endsWith("/archive"), `the archive link points to ${href}`);
+      const response = await fetch(new URL(/** @type {string} */ (href), origin));
+      assert(response.ok, `the archive answered ${response.status}`);
+      const bytes = Buffer.from(await response.arrayBuffer());
+      assert(bytes.subarray(0, 2).toString("latin1") === "PK", "the archive is not a zip file");
+      const file = path.join(path.dirname(profile), "session-archive.zip");
+      fs.writeFileSync(file, bytes);
+      await page.goto(`${origin}/`, { waitUntil: "domcontentloaded" });
+      const before = await page.locator("#sessions li").count();
+      await page.setInputFiles("#archive-file", file);
+      await page.click('#import-archive button[type="submit"]');
+      await page.waitForFunction(() => (document.querySelector("#start-status")?.textContent ?? "").startsWith("Imported") || document.querySelector("#start-status")?.classList.contains("error"), undefined, { timeout });
+      const status = ((await page.locator("#start-status").textContent()) ?? "").trim();
+      assert(status.startsWith("Imported"), `the start page says "${status}"`);
+      await page.waitForFunction((n) => document.querySelectorAll("#sessions li").length === n + 1, before, { timeout });
     });
     await check("a session is created and renamed from the start page", async () => {
       await page.goto(`${origin}/`, { waitUntil: "domcontentloaded" });

@@ -637,6 +637,11 @@ export class SessionApi {
   reportUrl() {
     return `${this.base}/report.html`;
   }
+
+  /** The whole session as one archive file. @returns {string} */
+  archiveUrl() {
+    return `${this.base}/archive`;
+  }
 }
 
 /**
