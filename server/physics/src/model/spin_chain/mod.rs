@@ -22,7 +22,11 @@
 //! H to itself, σᶻ_i to −σᶻ_i and sector k to sector N − k, so sector N − k
 //! contributes to Tr[σᶻ_i(t) σᶻ_j] exactly what sector k contributes. Only the
 //! sectors k ≤ N/2 are therefore computed, those with k < N/2 counted twice.
+//!
+//! Longer chains are left to the semiclassical [`dtwa`] module (any length
+//! up to [`MAX_DTWA_SITES`], validated against exact dynamics in its docs).
 
+pub mod dtwa;
 pub mod exact;
 pub mod typicality;
 
@@ -45,6 +49,11 @@ pub const MAX_EXACT_SITES: usize = 14;
 /// bits (C(22, 11) = 705432 < 2^24) and a coupling index in 8 bits
 /// (22·21/2 = 231 < 256 pairs).
 pub const MAX_TYPICAL_SITES: usize = 22;
+
+/// Largest chain the semiclassical method accepts: each step multiplies the
+/// N × N coupling matrices with the spins of a batch, so the cost grows like
+/// N²; 2000 sites is where one trajectory to t = 10 takes about a second.
+pub const MAX_DTWA_SITES: usize = 2000;
 
 /// Why a spin-chain computation was refused or stopped.
 #[derive(Debug, Clone, PartialEq, Error)]
@@ -83,6 +92,23 @@ pub enum SpinChainError {
         needed_bytes: u64,
         limit_bytes: u64,
         detail: String,
+    },
+    #[error("spin chain: the semiclassical method handles at most {max} sites, got {sites}")]
+    TooLargeForDtwa { sites: usize, max: usize },
+    #[error(
+        "spin chain: the semiclassical method needs at least 4 trajectories to state an error, got {0}"
+    )]
+    TooFewTrajectories(usize),
+    #[error("spin chain: the semiclassical step scale must lie in (0, 0.5], got {0}")]
+    BadStepScale(f64),
+    #[error(
+        "spin chain: the parts do not make up one run: expected {expected}, found {found}, \
+         {missing} missing (parts of different runs, or a part left out)"
+    )]
+    IncompleteRun {
+        expected: usize,
+        found: usize,
+        missing: usize,
     },
     #[error("spin chain: computation cancelled")]
     Cancelled,
