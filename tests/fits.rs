@@ -284,6 +284,118 @@ async fn theory_overlays_use_the_dataset_metadata_and_give_residuals() {
 }
 
 #[tokio::test]
+async fn long_chain_overlays_say_their_method_and_time_first_and_take_a_coupling_matrix() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    // A 41-site lattice-walk map as the dataset (the overlay's own accuracy
+    // is the physics crate's concern; here the route's choices are checked).
+    let walk = spreadscope_physics::model::lattice_walk::LatticeWalk::power_law(41, 1.0, 1.2)
+        .expect("walk");
+    let map = walk.to_correlation_map(20, &[0.0, 0.5, 1.0]).expect("map");
+    let csv = spreadscope::simulate::to_long_csv(
+        &map,
+        &[
+            "synthetic: true".into(),
+            "chain_length: 41".into(),
+            "alpha: 1.2".into(),
+        ],
+    );
+    let (_, ds) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets?name=long.csv"),
+        csv,
+    )
+    .await;
+    let id = ds["id"].as_i64().expect("id");
+    let uri = format!("/api/s/{edit}/datasets/{id}/theory");
+    let ask =
+        |body: serde_json::Value| send_json(&app.router, Method::POST, &uri, body.to_string());
+    // Before running: the method `auto` picks at 41 sites, and a time.
+    let (status, plan) = ask(json!({"model": "spin_chain", "plan": true})).await;
+    assert_eq!(status, StatusCode::OK, "{plan}");
+    assert!(
+        plan["method"]
+            .as_str()
+            .expect("method")
+            .starts_with("semiclassical DTWA"),
+        "{plan}"
+    );
+    let seconds = plan["seconds"].as_f64().expect("seconds");
+    assert!(seconds > 0.0 && seconds < 60.0, "{plan}");
+    assert_eq!(plan["sites"], 41);
+    // Small chains keep the exact methods.
+    let (_, small) = ask(json!({"model": "spin_chain", "plan": true, "sites": 10})).await;
+    assert!(
+        small["method"]
+            .as_str()
+            .expect("method")
+            .starts_with("exact"),
+        "{small}"
+    );
+    // The run: every offset of the chain, the caveat said.
+    let (status, run) = ask(json!({"model": "spin_chain", "trajectories": 64, "seed": 3})).await;
+    assert_eq!(status, StatusCode::OK, "{run}");
+    assert!(
+        run["method"].as_str().expect("method").contains("DTWA"),
+        "{run}"
+    );
+    assert!(
+        run["warnings"]
+            .as_array()
+            .expect("warnings")
+            .iter()
+            .any(|w| w.as_str().is_some_and(|s| s.contains("short-range chains"))),
+        "{run}"
+    );
+    let sum: f64 = run["C"][2]
+        .as_array()
+        .expect("row")
+        .iter()
+        .map(|v| v.as_f64().expect("value"))
+        .sum();
+    // Σ_i C_i,source = 1 exactly for every DTWA pair (physics notes).
+    assert!((sum - 1.0).abs() < 1e-9, "sum rule {sum}");
+    // A measured coupling matrix sets the chain: the 41 × 41 power law
+    // J = 1/|i−j|^1.2 given as rows gives the walk of the metadata's α.
+    let rows: Vec<Vec<f64>> = (0..41)
+        .map(|i: i32| {
+            (0..41)
+                .map(|j: i32| {
+                    if i == j {
+                        0.0
+                    } else {
+                        f64::from((i - j).abs()).powf(-1.2)
+                    }
+                })
+                .collect()
+        })
+        .collect();
+    let (status, walk_run) = ask(json!({"model": "lattice_walk", "couplings": rows})).await;
+    assert_eq!(status, StatusCode::OK, "{walk_run}");
+    assert_eq!(walk_run["parameters"]["coupling_matrix"], true);
+    let worst = walk_run["residual"]
+        .as_array()
+        .expect("rows")
+        .iter()
+        .flat_map(|r| {
+            r.as_array()
+                .expect("row")
+                .iter()
+                .map(|v| v.as_f64().expect("v").abs())
+        })
+        .fold(0.0f64, f64::max);
+    assert!(worst < 1e-12, "residual {worst}");
+    let (status, ragged) =
+        ask(json!({"model": "lattice_walk", "couplings": [[0.0, 1.0], [1.0]]})).await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{ragged}");
+    assert!(
+        ragged["error"].as_str().expect("error").contains("row 2"),
+        "{ragged}"
+    );
+}
+
+#[tokio::test]
 async fn the_scaling_function_is_the_stable_density_in_collapse_units() {
     let app = app().await;
     let (_, view) = new_session(&app.router).await;

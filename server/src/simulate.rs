@@ -26,8 +26,8 @@ pub enum Model {
     Stable,
     /// Classical random walk with rates γ0 |i−j|^(−2α) on the open chain.
     LatticeWalk,
-    /// Infinite-temperature spin-chain dynamics (exact ≤ 14 sites, typicality ≤ 22;
-    /// free fermions for nearest neighbours at Δ = 0).
+    /// Infinite-temperature spin-chain dynamics (exact ≤ 14 sites, typicality ≤ 22,
+    /// semiclassical DTWA for any length; free fermions for nearest neighbours at Δ = 0).
     SpinChain,
     /// The t² (or t⁴) short-time expansion for the chain's couplings.
     ShortTime,
@@ -36,10 +36,12 @@ pub enum Model {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum Method {
     /// Free fermions when exact (nearest neighbours, Δ = 0), else exact
-    /// diagonalisation up to 14 sites, else typicality.
+    /// diagonalisation up to 14 sites, typicality up to 18, else DTWA.
     Auto,
     Exact,
     Typicality,
+    /// Semiclassical: the discrete truncated Wigner approximation (any length).
+    Dtwa,
 }
 
 #[derive(Debug, Args)]
@@ -93,6 +95,9 @@ pub struct SimulateArgs {
     /// Random vectors of the typicality method.
     #[arg(long, default_value_t = 8)]
     pub samples: usize,
+    /// Trajectories of the semiclassical (DTWA) method.
+    #[arg(long, default_value_t = crate::service::theory::DEFAULT_TRAJECTORIES)]
+    pub trajectories: usize,
     /// Seed of every random number used.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -187,8 +192,10 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
             Method::Auto => SpinMethod::Auto,
             Method::Exact => SpinMethod::Exact,
             Method::Typicality => SpinMethod::Typicality,
+            Method::Dtwa => SpinMethod::Dtwa,
         },
         samples: args.samples,
+        trajectories: args.trajectories,
         seed: args.seed,
     };
     let bar = indicatif::ProgressBar::new(1000);

@@ -839,6 +839,22 @@ async function main() {
         await page.waitForFunction(() => document.querySelector("#view-residual.js-plotly-plot .heatmaplayer image, #view-residual.js-plotly-plot canvas") !== null);
         shots.push(await sideShot(page, args.screenshot, "residual"));
       });
+      await check("a spin-chain overlay on the 101-site map says its method and time before it runs, then draws with the method's caveat", async () => {
+        await page.click("#desk-tab-theory");
+        await page.check('input[name="theory-model"][value="spin_chain"]');
+        await page.fill("#theory-trajectories", "64");
+        await page.waitForFunction(() => /semiclassical DTWA, 64 trajectories on 101 sites/.test(document.querySelector("#theory-plan")?.textContent ?? ""), undefined, { timeout: args.timeout });
+        const plan = await page.locator("#theory-plan").innerText();
+        assert(/under a second|about \d+ (s|min)/.test(plan), `the plan line says "${plan}"`);
+        await page.click("#theory-run");
+        await page.locator("#theory-status[data-kind='ok'], #theory-status[data-kind='error']").waitFor({ timeout: Math.max(args.timeout, 120000) });
+        const status = await page.locator("#theory-status").innerText();
+        assert(status.startsWith("Drawn"), `the theory panel says "${status}"`);
+        const summary = await page.locator("#theory-summary").innerText();
+        assert(summary.includes("DTWA") && summary.includes("short-range chains"), `the overlay summary says "${summary}"`);
+        await page.fill("#theory-trajectories", "");
+        await page.check('input[name="theory-model"][value="lattice_walk"]');
+      });
     } else {
       skipPending("theory overlays and the difference map", "the server has no …/theory route yet");
     }

@@ -15,6 +15,7 @@
  * @property {{reconnected: boolean}} log the log may have changed (an event, or a reconnect)
  * @property {string} view the active view changed
  * @property {number} textscale the large-text setting changed (1 = normal)
+ * @property {{name: string, matrix: number[][]} | null} couplings a coupling matrix was imported (null: none)
  */
 
 const target = new EventTarget();

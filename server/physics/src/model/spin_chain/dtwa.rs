@@ -205,8 +205,9 @@ fn pairs_in_batch(trajectories: usize, batch: usize) -> usize {
     BATCH.min(pair_count(trajectories) - batch * BATCH)
 }
 
-/// The largest step of a run (see the module documentation).
-fn largest_step(chain: &SpinChain, step_scale: f64) -> f64 {
+/// The largest Runge–Kutta step of a run (see the module documentation).
+#[must_use]
+pub fn largest_step(chain: &SpinChain, step_scale: f64) -> f64 {
     let j = chain.flip_flop().matrix();
     let v = chain.ising().matrix();
     let omega = (0..chain.sites())
