@@ -558,3 +558,124 @@ fn simulate_runs_long_chains_semiclassically_with_errors() {
         }
     }
 }
+
+#[test]
+fn shards_of_a_semiclassical_run_merge_into_exactly_the_file_of_one_run() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let base = [
+        "simulate",
+        "spin-chain",
+        "--sites",
+        "30",
+        "--alpha",
+        "1.2",
+        "--delta",
+        "0.5",
+        "--times",
+        "0,0.5,1,2",
+        "--method",
+        "dtwa",
+        "--trajectories",
+        "300",
+        "--seed",
+        "9",
+    ];
+    let whole = dir.path().join("whole.csv");
+    let out = binary()
+        .args(base)
+        .arg("--out")
+        .arg(&whole)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let mut parts = Vec::new();
+    for k in 1..=3 {
+        let part = dir.path().join(format!("part-{k}.json"));
+        let out = binary()
+            .args(base)
+            .args(["--shard", &format!("{k}/3"), "--out"])
+            .arg(&part)
+            .output()
+            .expect("runs");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        parts.push(part);
+    }
+    let merged = dir.path().join("merged.csv");
+    // Any order of the parts.
+    let out = binary()
+        .arg("merge")
+        .args([&parts[2], &parts[0], &parts[1]])
+        .arg("--out")
+        .arg(&merged)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert_eq!(
+        std::fs::read(&merged).expect("merged"),
+        std::fs::read(&whole).expect("whole"),
+        "the merged file differs from the single run's"
+    );
+    // A missing part, a part given twice and a part of another run are refused.
+    let refuse = |files: &[&std::path::PathBuf], says: &str| {
+        let out = binary()
+            .arg("merge")
+            .args(files)
+            .arg("--out")
+            .arg(dir.path().join("never.csv"))
+            .output()
+            .expect("runs");
+        assert_eq!(out.status.code(), Some(2));
+        let err = String::from_utf8_lossy(&out.stderr);
+        assert!(err.contains(says), "{err}");
+    };
+    refuse(&[&parts[0], &parts[1]], "part 3/3 is missing");
+    refuse(&[&parts[0], &parts[0], &parts[1]], "is also given as");
+    let other = dir.path().join("other.json");
+    let other_run: Vec<&str> = base
+        .iter()
+        .map(|&a| if a == "9" { "10" } else { a })
+        .collect();
+    let out = binary()
+        .args(&other_run)
+        .args(["--shard", "3/3", "--out"])
+        .arg(&other)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    refuse(&[&parts[0], &parts[1], &other], "part of another run");
+    refuse(&[&whole], "not a shard file");
+    // Only semiclassical runs split.
+    let out = binary()
+        .args([
+            "simulate",
+            "spin-chain",
+            "--sites",
+            "8",
+            "--times",
+            "0.5",
+            "--method",
+            "exact",
+        ])
+        .args(["--shard", "1/2", "--out"])
+        .arg(dir.path().join("x.json"))
+        .output()
+        .expect("runs");
+    assert_eq!(out.status.code(), Some(2));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("--shard 1/2"));
+}

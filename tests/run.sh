@@ -3,7 +3,8 @@
 # installs what is missing (Debian's chromium for the browser test, openssl
 # for the HTTPS test, the node modules for the front-end type check and the browser driver), then runs the
 # front-end type check, rustfmt, clippy, rustdoc and all tests including the
-# browser test. Works as root and as a user with sudo. `.ci/run` calls exactly
+# browser test, then the Slurm job-array check when a one-node cluster can be
+# started here (tests/slurm/array.sh). Works as root and as a user with sudo. `.ci/run` calls exactly
 # this script; the README gives it as the test command.
 set -euo pipefail
 cd "$(dirname "$0")/.."
@@ -48,3 +49,12 @@ RUSTDOCFLAGS="-D warnings" cargo doc --locked --workspace --no-deps --quiet
 
 echo "== tests (including the browser test)"
 cargo test --locked --workspace -- --include-ignored
+
+echo "== Slurm: the README's job-array template on a one-node cluster"
+slurm=0
+tests/slurm/array.sh target/debug/spreadscope || slurm=$?
+if [ "$slurm" -eq 3 ]; then
+  echo "   not run: no one-node Slurm cluster could be started on this machine (reason above)"
+elif [ "$slurm" -ne 0 ]; then
+  exit "$slurm"
+fi

@@ -35,6 +35,8 @@ pub enum Command {
     Correlate(crate::correlate::CorrelateArgs),
     /// Compute a reference model's C(x,t) and write it as long CSV `x,t,C[,err]`.
     Simulate(crate::simulate::SimulateArgs),
+    /// Join the shard files of a semiclassical run (`simulate --shard K/N`) into its map.
+    Merge(crate::shard::MergeArgs),
     /// Create, list and rename the sessions of a data directory.
     Session(crate::session_cli::SessionArgs),
     /// Send maps or shot files to a running server's session (safe to retry).
@@ -88,6 +90,7 @@ pub fn run(cli: Cli) -> ExitCode {
     let result = match cli.command {
         Command::Serve(args) => serve(&args),
         Command::Simulate(args) => crate::simulate::run(&args),
+        Command::Merge(args) => crate::shard::run(&args),
         Command::Analyze(args) => crate::analyze::run(&args),
         Command::Correlate(args) => crate::correlate::run(&args),
         Command::Session(args) => crate::session_cli::run(&args),

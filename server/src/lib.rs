@@ -19,6 +19,7 @@ pub mod loadcheck;
 pub mod push;
 pub mod service;
 pub mod session_cli;
+pub mod shard;
 pub mod simulate;
 pub mod store;
 pub mod tls;

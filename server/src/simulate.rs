@@ -98,6 +98,11 @@ pub struct SimulateArgs {
     /// Trajectories of the semiclassical (DTWA) method.
     #[arg(long, default_value_t = crate::service::theory::DEFAULT_TRAJECTORIES)]
     pub trajectories: usize,
+    /// Compute only part K of N of a semiclassical run and write it as a
+    /// shard file (JSON) to `--out`; `spreadscope merge` joins the N parts
+    /// into exactly the file one run writes.
+    #[arg(long, value_name = "K/N")]
+    pub shard: Option<String>,
     /// Seed of every random number used.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -203,6 +208,51 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         indicatif::ProgressStyle::with_template("{elapsed_precise} [{bar:40}] {percent}%")
             .unwrap_or_else(|_| indicatif::ProgressStyle::default_bar()),
     );
+    let alpha_text = if args.alpha.is_infinite() {
+        "inf".to_string()
+    } else {
+        args.alpha.to_string()
+    };
+    let header = |how: &str| -> Vec<String> {
+        vec![
+            format!(
+                "Made by `spreadscope simulate` ({}): {how}; {} sites, source {source}, alpha {alpha_text}, \
+                 J {}, Delta {}, seed {}.",
+                env!("CARGO_PKG_VERSION"),
+                sites,
+                args.coupling,
+                args.delta,
+                args.seed
+            ),
+            format!("Conventions: {CONVENTIONS}"),
+            "synthetic: true".into(),
+            format!("chain_length: {sites}"),
+            format!("source_site: {source}"),
+        ]
+        .into_iter()
+        .chain((args.coupling_matrix.is_none()).then(|| format!("alpha: {alpha_text}")))
+        .chain(matrix_notes.iter().cloned())
+        .chain(std::iter::once(format!("notes: simulated ({how})")))
+        .collect()
+    };
+    if let Some(part) = &args.shard {
+        let (k, n) = crate::shard::parse_part(part).map_err(CliError::Input)?;
+        let (chain, options) = spec
+            .dtwa_run()
+            .map_err(|e| CliError::Input(format!("--shard {part}: {e}")))?;
+        let file = crate::shard::compute(
+            &chain,
+            &options,
+            source,
+            &times,
+            header(&spec.dtwa_words()),
+            (k, n),
+            &|f| bar.set_position((f * 1000.0) as u64),
+        )
+        .map_err(|e| CliError::Input(format!("simulate: {e}")))?;
+        bar.finish_and_clear();
+        return crate::shard::write(&file, &args.out);
+    }
     let never = AtomicBool::new(false);
     let (map, how) = model_map(
         &spec,
@@ -222,32 +272,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         })
     })?;
     bar.finish_and_clear();
-    let alpha_text = if args.alpha.is_infinite() {
-        "inf".to_string()
-    } else {
-        args.alpha.to_string()
-    };
-    let header = vec![
-        format!(
-            "Made by `spreadscope simulate` ({}): {how}; {} sites, source {source}, alpha {alpha_text}, \
-             J {}, Delta {}, seed {}.",
-            env!("CARGO_PKG_VERSION"),
-            sites,
-            args.coupling,
-            args.delta,
-            args.seed
-        ),
-        format!("Conventions: {CONVENTIONS}"),
-        "synthetic: true".into(),
-        format!("chain_length: {sites}"),
-        format!("source_site: {source}"),
-    ]
-    .into_iter()
-    .chain((args.coupling_matrix.is_none()).then(|| format!("alpha: {alpha_text}")))
-    .chain(matrix_notes)
-    .chain(std::iter::once(format!("notes: simulated ({how})")))
-    .collect::<Vec<_>>();
-    std::fs::write(&args.out, to_long_csv(&map, &header))
+    std::fs::write(&args.out, to_long_csv(&map, &header(&how)))
         .map_err(|e| CliError::Failure(format!("{}: {e}", args.out.display())))
 }
 

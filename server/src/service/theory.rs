@@ -192,6 +192,33 @@ impl ModelSpec {
     }
 }
 
+impl ModelSpec {
+    /// The chain and options of a semiclassical run, for runs split into
+    /// shards (see `shard.rs`).
+    ///
+    /// # Errors
+    /// A spec that is not a spin chain computed by DTWA, or a bad chain.
+    pub fn dtwa_run(&self) -> Result<(SpinChain, DtwaOptions), String> {
+        if self.model != TheoryModel::SpinChain || self.resolved() != Resolved::Dtwa {
+            return Err(
+                "only semiclassical (DTWA) runs split into shards: use spin-chain with --method dtwa"
+                    .into(),
+            );
+        }
+        let chain = SpinChain::new(&self.couplings()?, self.delta).map_err(|e| e.to_string())?;
+        Ok((chain, DtwaOptions::new(self.trajectories, self.seed)))
+    }
+
+    /// How a semiclassical run is described in outputs.
+    #[must_use]
+    pub fn dtwa_words(&self) -> String {
+        format!(
+            "semiclassical DTWA, {} trajectories, seed {}",
+            self.trajectories, self.seed
+        )
+    }
+}
+
 /// C(n, k) as a float.
 fn binomial(n: usize, k: usize) -> f64 {
     (0..k).fold(1.0, |c, i| c * (n - i) as f64 / (i + 1) as f64)
@@ -291,13 +318,7 @@ pub fn model_map(
                     dtwa::correlations(&chain, spec.source, times, &options, progress, cancel)
                         .map_err(|e| text(&e))?;
                 let map = result.to_correlation_map().map_err(|e| text(&e))?;
-                Ok((
-                    map,
-                    format!(
-                        "semiclassical DTWA, {} trajectories, seed {}",
-                        spec.trajectories, spec.seed
-                    ),
-                ))
+                Ok((map, spec.dtwa_words()))
             }
         },
     }
