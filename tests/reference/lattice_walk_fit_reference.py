@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Reference fit for spreadscope's lattice-walk fit (fit/lattice_walk_fit.rs).
+"""Reference fit for spreadscope's lattice-walk fit (fit/lattice_walk_fit/).
 
 An independent fit with scipy: the master equation dP/dt = G P on an open
 chain of N = 9 sites, G_ij = gamma0 |i-j|^(-2 alpha) (i != j), G_ii = -sum_j

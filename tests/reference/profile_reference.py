@@ -1,5 +1,5 @@
 #!/usr/bin/env python3
-"""Reference fits for spreadscope's scaling-function fit (fit/profile.rs).
+"""Reference fits for spreadscope's scaling-function fit (fit/profile/).
 
 An independent fit of the same synthetic map with scipy: curve_fit
 (trust-region reflective with bounds, absolute_sigma=True so that the
