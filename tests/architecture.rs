@@ -383,3 +383,151 @@ fn a_test_module_in_its_own_file_is_skipped_and_nothing_else() {
         "{kept:?}"
     );
 }
+
+/// The modules directly under `dir` (files `x.rs` and folders `x/`, without
+/// `lib`, `main` and `mod`) and which of them each one uses, from the paths
+/// of its non-test files: `{prefix}x::…` anywhere below, and `super::x::…`
+/// in files directly in `dir`.
+fn module_graph(dir: &str, prefix: &str) -> Vec<(String, Vec<(String, String)>)> {
+    let root = repo_path(dir);
+    let files = rust_files(&root);
+    let tests = test_module_files(&files);
+    let module_of = |file: &Path| -> Option<String> {
+        let first = file.strip_prefix(&root).ok()?.components().next()?;
+        let name = first
+            .as_os_str()
+            .to_str()?
+            .trim_end_matches(".rs")
+            .to_string();
+        (!matches!(name.as_str(), "lib" | "main" | "mod")).then_some(name)
+    };
+    let mut graph: Vec<(String, Vec<(String, String)>)> = Vec::new();
+    for file in files
+        .iter()
+        .filter(|f| !tests.iter().any(|t| f.starts_with(t)))
+    {
+        let Some(module) = module_of(file) else {
+            continue;
+        };
+        let text = fs::read_to_string(file).expect("readable source");
+        let uses = uses_of_source(&text).expect("parses");
+        let direct = file.parent() == Some(root.as_path());
+        let index = match graph.iter().position(|(m, _)| *m == module) {
+            Some(i) => i,
+            None => {
+                graph.push((module.clone(), Vec::new()));
+                graph.len() - 1
+            }
+        };
+        for (path, line) in &uses.paths {
+            let rest = path
+                .strip_prefix(prefix)
+                .or_else(|| direct.then(|| path.strip_prefix("super::")).flatten());
+            let Some(target) = rest.and_then(|r| r.split("::").next()) else {
+                continue;
+            };
+            if target != module {
+                let place = format!("{}:{line}", file.display());
+                graph[index].1.push((target.to_string(), place));
+            }
+        }
+    }
+    let names: Vec<String> = graph.iter().map(|(m, _)| m.clone()).collect();
+    for (_, edges) in &mut graph {
+        edges.retain(|(t, _)| names.contains(t));
+    }
+    graph
+}
+
+/// A cycle of the graph as "a → b (place) → … → a", if there is one.
+fn find_cycle(graph: &[(String, Vec<(String, String)>)]) -> Option<String> {
+    fn visit(
+        graph: &[(String, Vec<(String, String)>)],
+        node: usize,
+        state: &mut [u8],
+        stack: &mut Vec<(usize, String)>,
+    ) -> Option<String> {
+        state[node] = 1;
+        for (target, place) in &graph[node].1 {
+            let Some(t) = graph.iter().position(|(m, _)| m == target) else {
+                continue;
+            };
+            stack.push((t, place.clone()));
+            if state[t] == 1 {
+                // The loop runs from t's place on the stack back to t.
+                let start = stack.iter().position(|(n, _)| *n == t).unwrap_or(0);
+                let path: Vec<String> = stack[start + 1..]
+                    .iter()
+                    .map(|(n, p)| format!("{} ({p})", graph[*n].0))
+                    .collect();
+                return Some(format!("{} → {}", graph[t].0, path.join(" → ")));
+            }
+            if state[t] == 0 {
+                if let Some(c) = visit(graph, t, state, stack) {
+                    return Some(c);
+                }
+            }
+            stack.pop();
+        }
+        state[node] = 2;
+        None
+    }
+    let mut state = vec![0u8; graph.len()];
+    for start in 0..graph.len() {
+        if state[start] == 0 {
+            let mut stack = vec![(start, String::new())];
+            if let Some(c) = visit(graph, start, &mut state, &mut stack) {
+                return Some(c);
+            }
+        }
+    }
+    None
+}
+
+#[test]
+fn modules_do_not_import_each_other_in_a_circle() {
+    for (dir, prefix) in [
+        ("server/src", "crate::"),
+        ("server/src/cli", "crate::cli::"),
+        ("server/src/service", "crate::service::"),
+        ("server/src/ingest", "crate::ingest::"),
+        ("server/physics/src", "crate::"),
+        ("server/physics/src/fit", "crate::fit::"),
+        ("server/physics/src/model", "crate::model::"),
+        ("server/physics/src/numerics", "crate::numerics::"),
+    ] {
+        let graph = module_graph(dir, prefix);
+        assert!(graph.len() > 2, "{dir}: no modules found");
+        if let Some(cycle) = find_cycle(&graph) {
+            panic!("{dir}: modules import each other in a circle: {cycle}");
+        }
+    }
+}
+
+#[test]
+fn the_circle_check_finds_a_planted_circle() {
+    let graph = vec![
+        (
+            "a".to_string(),
+            vec![("b".to_string(), "a.rs:1".to_string())],
+        ),
+        (
+            "b".to_string(),
+            vec![("c".to_string(), "b.rs:2".to_string())],
+        ),
+        (
+            "c".to_string(),
+            vec![("a".to_string(), "c.rs:3".to_string())],
+        ),
+        (
+            "d".to_string(),
+            vec![("a".to_string(), "d.rs:4".to_string())],
+        ),
+    ];
+    let cycle = find_cycle(&graph).expect("a circle");
+    assert!(
+        cycle.contains("c.rs:3") && cycle.starts_with('a'),
+        "{cycle}"
+    );
+    assert!(find_cycle(&graph[..2]).is_none());
+}

@@ -221,7 +221,7 @@ async fn theory_overlays_use_the_dataset_metadata_and_give_residuals() {
     let walk = spreadscope_physics::model::lattice_walk::LatticeWalk::power_law(15, 1.0, 1.3)
         .expect("walk");
     let map = walk.to_correlation_map(7, &[0.5, 1.0, 2.0]).expect("map");
-    let csv = spreadscope::simulate::to_long_csv(&map, &["synthetic: true".into()]);
+    let csv = spreadscope::cli::long_csv::to_long_csv(&map, &["synthetic: true".into()]);
     let (_, ds) = send_json(
         &app.router,
         Method::POST,
@@ -292,7 +292,7 @@ async fn long_chain_overlays_say_their_method_and_time_first_and_take_a_coupling
     let walk = spreadscope_physics::model::lattice_walk::LatticeWalk::power_law(41, 1.0, 1.2)
         .expect("walk");
     let map = walk.to_correlation_map(20, &[0.0, 0.5, 1.0]).expect("map");
-    let csv = spreadscope::simulate::to_long_csv(
+    let csv = spreadscope::cli::long_csv::to_long_csv(
         &map,
         &[
             "synthetic: true".into(),
@@ -466,7 +466,7 @@ async fn profile_lattice_walk_and_analysis_methods_run_through_the_api() {
     let map = walk
         .to_correlation_map(15, &[0.5, 1.0, 2.0, 3.0])
         .expect("map");
-    let csv = spreadscope::simulate::to_long_csv(&map, &[]);
+    let csv = spreadscope::cli::long_csv::to_long_csv(&map, &[]);
     let (_, ds) = send_json(
         &app.router,
         Method::POST,

@@ -118,7 +118,7 @@ fn a_push_retried_after_its_answer_was_lost_stores_one_dataset() {
     let file = dir.path().join("run9.csv");
     std::fs::write(&file, map_csv(41, 30)).expect("writes");
     let bytes = std::fs::read(&file).expect("reads");
-    let key = spreadscope::push::push_key("run9.csv", &bytes);
+    let key = spreadscope::cli::push::push_key("run9.csv", &bytes);
     // Send the upload and hang up without reading the answer: the client
     // never learns whether it was stored.
     let host = server.base.trim_start_matches("http://").to_string();
@@ -835,7 +835,8 @@ fn the_server_answers_over_https_with_a_self_signed_certificate() {
     assert!(server.base.starts_with("https://"), "{}", server.base);
     let (edit_link, _) = server.links[0].clone();
     let token = token_of(&edit_link);
-    let trusting = spreadscope::client::agent(Some(&cert), Duration::from_secs(20)).expect("agent");
+    let trusting =
+        spreadscope::cli::client::agent(Some(&cert), Duration::from_secs(20)).expect("agent");
     let mut answer = trusting
         .get(&format!("{}/api/s/{token}", server.base))
         .call()
@@ -845,7 +846,7 @@ fn the_server_answers_over_https_with_a_self_signed_certificate() {
         serde_json::from_str(&answer.body_mut().read_to_string().expect("body")).expect("json");
     assert_eq!(info["can_edit"], json!(true));
     // A client that does not trust the certificate is refused.
-    let stranger = spreadscope::client::agent(None, Duration::from_secs(20)).expect("agent");
+    let stranger = spreadscope::cli::client::agent(None, Duration::from_secs(20)).expect("agent");
     assert!(
         stranger
             .get(&format!("{}/api/s/{token}", server.base))

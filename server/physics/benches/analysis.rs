@@ -213,7 +213,7 @@ fn main() {
         );
     });
 
-    println!("\n{}", with_walk.render_text());
+    println!("\nverdict: {}", with_walk.verdict.headline);
     let script = PathBuf::from(env!("CARGO_MANIFEST_DIR"))
         .join("../../tests/reference/bench_scipy_analysis.py");
     let args = [

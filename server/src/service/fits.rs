@@ -627,7 +627,7 @@ fn compute(
             for w in &report.warnings {
                 warnings.push(w.message.clone());
             }
-            let text = report.render_text();
+            let text = crate::analysis_text::render(&report);
             let mut value = to_value(&report)?;
             value["text"] = json!(text);
             *analysis_out = Some(AnalysisHeadline {

@@ -5,6 +5,21 @@
 //! Exit codes: 0 success, 2 bad input (a one-line reason naming the file,
 //! line or option), 1 any other failure.
 
+pub mod analyze;
+pub mod archive;
+pub mod backup;
+pub mod client;
+pub mod correlate;
+pub mod error;
+pub mod long_csv;
+pub mod push;
+pub mod session;
+pub mod shard;
+pub mod simulate;
+pub mod watch;
+
+pub use error::CliError;
+
 use std::net::{IpAddr, SocketAddr};
 use std::path::PathBuf;
 use std::process::ExitCode;
@@ -30,21 +45,21 @@ pub enum Command {
     /// Serve the dashboard (a fresh data directory starts with the demo session).
     Serve(ServeArgs),
     /// Run every estimator on a correlation map and print the results.
-    Analyze(crate::analyze::AnalyzeArgs),
+    Analyze(analyze::AnalyzeArgs),
     /// Estimate C(x,t) with bootstrap errors from shot records.
-    Correlate(crate::correlate::CorrelateArgs),
+    Correlate(correlate::CorrelateArgs),
     /// Compute a reference model's C(x,t) and write it as long CSV `x,t,C[,err]`.
-    Simulate(crate::simulate::SimulateArgs),
+    Simulate(simulate::SimulateArgs),
     /// Join the shard files of a semiclassical run (`simulate --shard K/N`) into its map.
-    Merge(crate::shard::MergeArgs),
+    Merge(shard::MergeArgs),
     /// Create, list and rename the sessions of a data directory.
-    Session(crate::session_cli::SessionArgs),
+    Session(session::SessionArgs),
     /// Send maps or shot files to a running server's session (safe to retry).
-    Push(crate::push::PushArgs),
+    Push(push::PushArgs),
     /// Export a session as one archive file, or import one into a new session.
-    Archive(crate::archive::ArchiveArgs),
+    Archive(archive::ArchiveArgs),
     /// Copy the session database consistently while the server runs.
-    Backup(crate::backup::BackupArgs),
+    Backup(backup::BackupArgs),
 }
 
 #[derive(Debug, clap::Args)]
@@ -75,28 +90,19 @@ pub struct ServeArgs {
     pub tls_key: Option<PathBuf>,
 }
 
-/// A failure of a command, with the exit code it maps to.
-#[derive(Debug)]
-pub enum CliError {
-    /// Bad input: exit 2.
-    Input(String),
-    /// Anything else: exit 1.
-    Failure(String),
-}
-
 /// Runs the parsed command line.
 #[must_use]
 pub fn run(cli: Cli) -> ExitCode {
     let result = match cli.command {
         Command::Serve(args) => serve(&args),
-        Command::Simulate(args) => crate::simulate::run(&args),
-        Command::Merge(args) => crate::shard::run(&args),
-        Command::Analyze(args) => crate::analyze::run(&args),
-        Command::Correlate(args) => crate::correlate::run(&args),
-        Command::Session(args) => crate::session_cli::run(&args),
-        Command::Push(args) => crate::push::run(&args),
-        Command::Archive(args) => crate::archive::run(&args),
-        Command::Backup(args) => crate::backup::run(&args),
+        Command::Simulate(args) => simulate::run(&args),
+        Command::Merge(args) => shard::run(&args),
+        Command::Analyze(args) => analyze::run(&args),
+        Command::Correlate(args) => correlate::run(&args),
+        Command::Session(args) => session::run(&args),
+        Command::Push(args) => push::run(&args),
+        Command::Archive(args) => archive::run(&args),
+        Command::Backup(args) => backup::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
@@ -128,7 +134,7 @@ fn serve(args: &ServeArgs) -> Result<(), CliError> {
             _ => None,
         };
         if let (Some(dir), Some(into)) = (&args.watch, &args.into) {
-            crate::watch::start(&app.service, dir, into).await?;
+            watch::start(&app.service, dir, into).await?;
         }
         let listener = tokio::net::TcpListener::bind(SocketAddr::new(args.bind, args.port))
             .await

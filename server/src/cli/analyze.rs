@@ -29,7 +29,7 @@ impl From<DConventionArg> for DConvention {
     }
 }
 
-use crate::cli::CliError;
+use super::error::CliError;
 use crate::ingest::{self, Format, IngestOptions};
 use crate::service::{CONVENTIONS, PROGRAM_VERSION};
 
@@ -143,7 +143,7 @@ pub fn run(args: &AnalyzeArgs) -> Result<(), CliError> {
         );
     } else {
         println!("{} — {}", PROGRAM_VERSION, args.file.display());
-        println!("{}", report.render_text());
+        println!("{}", crate::analysis_text::render(&report));
     }
     Ok(())
 }

@@ -13,8 +13,8 @@ use std::time::Duration;
 use clap::Args;
 use sha2::{Digest, Sha256};
 
-use crate::cli::CliError;
-use crate::client::{self, SessionLink};
+use super::client::{self, SessionLink};
+use super::error::CliError;
 use crate::dataset::DatasetMeta;
 
 #[derive(Debug, Args)]

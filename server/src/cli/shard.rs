@@ -22,8 +22,8 @@ use spreadscope_physics::model::couplings::Couplings;
 use spreadscope_physics::model::spin_chain::SpinChain;
 use spreadscope_physics::model::spin_chain::dtwa::{self, BatchSums, DtwaOptions};
 
-use crate::cli::CliError;
-use crate::simulate::to_long_csv;
+use super::error::CliError;
+use super::long_csv::to_long_csv;
 
 /// The format name every shard file starts with.
 pub const FORMAT: &str = "spreadscope semiclassical shard";

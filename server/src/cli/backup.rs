@@ -11,7 +11,7 @@ use std::path::PathBuf;
 
 use clap::Args;
 
-use crate::cli::CliError;
+use super::error::CliError;
 use crate::store::StoreError;
 
 #[derive(Debug, Args)]

@@ -6,7 +6,7 @@
 use std::path::Path;
 use std::time::Duration;
 
-use crate::cli::CliError;
+use super::error::CliError;
 
 /// A session link split into the server's base URL and the token.
 #[derive(Debug, Clone, PartialEq, Eq)]

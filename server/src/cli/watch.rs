@@ -3,7 +3,7 @@
 
 use std::path::Path;
 
-use crate::cli::CliError;
+use super::error::CliError;
 use crate::service::Service;
 use crate::service::watch::WatchSettings;
 

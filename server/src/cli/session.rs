@@ -11,7 +11,7 @@ use std::path::PathBuf;
 
 use clap::{Args, Subcommand};
 
-use crate::cli::CliError;
+use super::error::CliError;
 use crate::service::{Access, Service, ServiceConfig, ServiceError};
 use crate::store::{SessionRow, Store};
 

@@ -4,7 +4,6 @@
 //! file back gives the same bits. Metadata lines (`# key: value`) carry the
 //! chain, α and `synthetic: true`, so an upload of the file is labelled.
 
-use std::fmt::Write as _;
 use std::path::PathBuf;
 
 use std::sync::atomic::AtomicBool;
@@ -14,7 +13,7 @@ use spreadscope_physics::CorrelationMap;
 
 use spreadscope_physics::model::stable::StableDensity;
 
-use crate::cli::CliError;
+use super::error::CliError;
 use crate::ingest::couplings::{CouplingConvention, CouplingsImportOptions, parse_couplings};
 use crate::service::CONVENTIONS;
 use crate::service::theory::{ModelSpec, SpinMethod, TheoryModel, model_map};
@@ -119,32 +118,6 @@ pub fn parse_times(spec: &str) -> Result<Vec<f64>, String> {
     crate::ingest::parse_time_spec(spec, "--times")
 }
 
-/// The map as long CSV with provenance comments and metadata lines.
-#[must_use]
-pub fn to_long_csv(map: &CorrelationMap, header: &[String]) -> String {
-    let mut out = String::new();
-    for line in header {
-        let _ = writeln!(out, "# {line}");
-    }
-    let with_err = map.errors().is_some();
-    out.push_str(if with_err { "x,t,C,err\n" } else { "x,t,C\n" });
-    for (ti, t) in map.times().iter().enumerate() {
-        for (xi, x) in map.offsets().iter().enumerate() {
-            if let Some((c, e)) = map.get(ti, xi) {
-                match e {
-                    Some(e) if with_err => {
-                        let _ = writeln!(out, "{x},{t:?},{c:?},{e:?}");
-                    }
-                    _ => {
-                        let _ = writeln!(out, "{x},{t:?},{c:?}");
-                    }
-                }
-            }
-        }
-    }
-    out
-}
-
 /// Runs `simulate`.
 ///
 /// # Errors
@@ -236,11 +209,11 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         .collect()
     };
     if let Some(part) = &args.shard {
-        let (k, n) = crate::shard::parse_part(part).map_err(CliError::Input)?;
+        let (k, n) = super::shard::parse_part(part).map_err(CliError::Input)?;
         let (chain, options) = spec
             .dtwa_run()
             .map_err(|e| CliError::Input(format!("--shard {part}: {e}")))?;
-        let file = crate::shard::compute(
+        let file = super::shard::compute(
             &chain,
             &options,
             source,
@@ -251,7 +224,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         )
         .map_err(|e| CliError::Input(format!("simulate: {e}")))?;
         bar.finish_and_clear();
-        return crate::shard::write(&file, &args.out);
+        return super::shard::write(&file, &args.out);
     }
     let never = AtomicBool::new(false);
     let (map, how) = model_map(
@@ -272,7 +245,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         })
     })?;
     bar.finish_and_clear();
-    std::fs::write(&args.out, to_long_csv(&map, &header(&how)))
+    std::fs::write(&args.out, super::long_csv::to_long_csv(&map, &header(&how)))
         .map_err(|e| CliError::Failure(format!("{}: {e}", args.out.display())))
 }
 
@@ -320,7 +293,7 @@ fn stable(args: &SimulateArgs, times: &[f64]) -> Result<(), CliError> {
             args.mu, args.diffusion
         ),
     ];
-    std::fs::write(&args.out, to_long_csv(&map, &header))
+    std::fs::write(&args.out, super::long_csv::to_long_csv(&map, &header))
         .map_err(|e| CliError::Failure(format!("{}: {e}", args.out.display())))
 }
 

@@ -6,11 +6,11 @@ use std::path::PathBuf;
 
 use clap::Args;
 
-use crate::cli::CliError;
+use super::error::CliError;
+use super::long_csv::to_long_csv;
 use crate::ingest::shots::{ShotFormat, parse_csv};
 use crate::service::shots::{ShotOptions, estimate_meta};
 use crate::service::{CONVENTIONS, PROGRAM_VERSION};
-use crate::simulate::to_long_csv;
 
 #[derive(Debug, Args)]
 pub struct CorrelateArgs {

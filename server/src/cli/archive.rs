@@ -12,8 +12,8 @@ use std::time::Duration;
 
 use clap::{Args, Subcommand};
 
-use crate::cli::CliError;
-use crate::client;
+use super::client;
+use super::error::CliError;
 
 #[derive(Debug, Args)]
 pub struct ArchiveArgs {
