@@ -301,6 +301,29 @@ fn physics_core_has_no_io_and_no_outer_crates() {
 }
 
 #[test]
+fn puruspe_is_reached_only_through_the_special_functions_module() {
+    // One door per numerical helper: the special functions wrap the crate,
+    // with their accuracy stated once; everything else calls them.
+    let root = repo_path("server/physics/src");
+    let files = rust_files(&root);
+    let tests = test_module_files(&files);
+    let mut violations = Vec::new();
+    for file in files
+        .iter()
+        .filter(|f| !tests.iter().any(|t| f.starts_with(t)) && !f.ends_with("numerics/special.rs"))
+    {
+        let text = fs::read_to_string(file).expect("readable source");
+        violations.extend(violations_in(
+            &file.display().to_string(),
+            &text,
+            &["puruspe"],
+            false,
+        ));
+    }
+    assert!(violations.is_empty(), "{}", violations.join("\n"));
+}
+
+#[test]
 fn numerics_know_no_models_and_models_know_no_fits() {
     check(
         "server/physics/src/numerics",

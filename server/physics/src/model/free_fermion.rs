@@ -18,6 +18,7 @@ use thiserror::Error;
 use crate::model::correlation_map::{CorrelationMap, MapError};
 use crate::model::couplings::Couplings;
 use crate::numerics::linalg::{LinalgError, symmetric_eigen};
+use crate::numerics::special::bessel_j;
 
 /// Why a free-fermion result could not be computed.
 #[derive(Debug, Clone, PartialEq, Error)]
@@ -138,13 +139,12 @@ impl FreeFermionChain {
 
 /// C(n,t) = J_n(2Jt)² on the infinite nearest-neighbour flip-flop chain with
 /// coupling J (spreadscope's convention, hopping K = J). Even in n and in t.
-/// Bessel J_n from `puruspe` (rational approximations and recurrences,
-/// ~1e-15 absolute).
+/// Bessel J_n from `numerics::special` (~1e-15 absolute).
 #[must_use]
 pub fn infinite_chain(n: i64, t: f64, coupling: f64) -> f64 {
     let order = u32::try_from(n.unsigned_abs()).unwrap_or(u32::MAX);
     let z = (2.0 * coupling * t).abs();
-    let j = puruspe::Jn(order, z);
+    let j = bessel_j(order, z);
     j * j
 }
 

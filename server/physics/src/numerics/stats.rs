@@ -207,7 +207,7 @@ pub fn summarize_bootstrap(replicates: &[f64]) -> BootstrapSummary {
 
 /// Probability that a χ² variable with `dof` degrees of freedom exceeds
 /// `chi2`: Q(dof/2, chi2/2), the regularised upper incomplete gamma function
-/// (A&S 26.4.19), from `puruspe::gammq` (relative accuracy ~3e-11 against
+/// (A&S 26.4.19), from `special::gamma_q` (relative accuracy ~3e-11 against
 /// scipy in the tests; ample for a p-value). NaN for dof = 0
 /// or a negative or non-finite χ².
 #[must_use]
@@ -215,7 +215,7 @@ pub fn chi2_survival(chi2: f64, dof: usize) -> f64 {
     if dof == 0 || !chi2.is_finite() || chi2 < 0.0 {
         return f64::NAN;
     }
-    puruspe::gammq(dof as f64 / 2.0, chi2 / 2.0)
+    crate::numerics::special::gamma_q(dof as f64 / 2.0, chi2 / 2.0)
 }
 
 /// Akaike's information criterion from a χ² fit with k parameters:

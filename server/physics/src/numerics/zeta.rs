@@ -12,6 +12,8 @@
 
 use std::f64::consts::PI;
 
+use crate::numerics::special::{EULER_GAMMA, ln_gamma, sin_half_pi};
+
 /// Number of terms summed directly before the Euler–Maclaurin correction.
 const EM_TERMS: usize = 12;
 
@@ -93,73 +95,34 @@ pub(crate) fn expm1_over_x(x: f64) -> f64 {
     }
 }
 
-/// sin(π s / 2) with exact reduction of |s| modulo 4, so that its zeros at even
-/// integers are exact and values near them keep full relative accuracy.
+/// Taylor coefficients c_0..=c_order of Γ(1 + η) = Σ c_m η^m around η = 0.
+///
+/// From ln Γ(1 + η) = −γη + Σ_{k≥2} (−1)^k ζ(k) η^k / k (A&S 6.1.33), then
+/// exponentiated term by term (the power-series exponential recurrence
+/// m c_m = Σ_{k=1}^{m} k ℓ_k c_{m−k}). ζ(k) comes from
+/// [`zeta`]. Coefficients are accurate to ~1e-15
+/// relative; all have modulus ≤ 1 for m ≤ 30 (they tend to (−1)^m).
 #[must_use]
-pub fn sin_half_pi(s: f64) -> f64 {
-    if s < 0.0 {
-        // Odd function; reducing |s| keeps tiny negative s exact (rem_euclid
-        // would round 4 − |s|).
-        return -sin_half_pi(-s);
+pub fn gamma_one_plus_taylor(order: usize) -> Vec<f64> {
+    // ℓ_k: coefficients of ln Γ(1 + η).
+    let mut ell = vec![0.0; order + 1];
+    if order >= 1 {
+        ell[1] = -EULER_GAMMA;
     }
-    // fmod is exact for finite operands.
-    let r = s % 4.0;
-    let h = PI / 2.0;
-    // Each branch maps r to within ±1/2 of the nearest integer; the
-    // subtractions are exact (Sterbenz) on these ranges.
-    if r <= 0.5 {
-        (h * r).sin()
-    } else if r <= 1.5 {
-        (h * (r - 1.0)).cos()
-    } else if r <= 2.5 {
-        -(h * (r - 2.0)).sin()
-    } else if r <= 3.5 {
-        -(h * (r - 3.0)).cos()
-    } else {
-        -(h * (4.0 - r)).sin()
+    for (k, l) in ell.iter_mut().enumerate().skip(2) {
+        let sign = if k % 2 == 0 { 1.0 } else { -1.0 };
+        *l = sign * zeta(k as f64) / k as f64;
     }
-}
-
-/// cos(π s / 2) with exact reduction of |s| modulo 4 (zeros at odd integers are
-/// exact, values near them keep full relative accuracy).
-#[must_use]
-pub fn cos_half_pi(s: f64) -> f64 {
-    // Even function; fmod of |s| is exact.
-    let r = s.abs() % 4.0;
-    let h = PI / 2.0;
-    if r <= 0.5 {
-        (h * r).cos()
-    } else if r <= 1.5 {
-        (h * (1.0 - r)).sin()
-    } else if r <= 2.5 {
-        -(h * (r - 2.0)).cos()
-    } else if r <= 3.5 {
-        (h * (r - 3.0)).sin()
-    } else {
-        (h * (4.0 - r)).cos()
+    let mut c = vec![0.0; order + 1];
+    c[0] = 1.0;
+    for m in 1..=order {
+        let mut acc = 0.0;
+        for k in 1..=m {
+            acc += k as f64 * ell[k] * c[m - k];
+        }
+        c[m] = acc / m as f64;
     }
-}
-
-/// ln Γ(z) for z ≥ 10 by Stirling's series with eight Bernoulli terms
-/// (DLMF 5.11.1); the first omitted term is below 1e-17 relative there.
-/// (`puruspe::ln_gamma` is a short Lanczos sum good to only ~1e-10.)
-#[must_use]
-pub(crate) fn ln_gamma_large(z: f64) -> f64 {
-    debug_assert!(z >= 10.0);
-    let inv = 1.0 / z;
-    let inv2 = inv * inv;
-    // B_{2k} / (2k (2k−1)) for k = 1..=8.
-    let coeffs = BERNOULLI_EVEN
-        .iter()
-        .take(8)
-        .enumerate()
-        .map(|(k, (num, den))| {
-            let two_k = 2.0 * (k + 1) as f64;
-            num / den / (two_k * (two_k - 1.0))
-        })
-        .collect::<Vec<_>>();
-    let series = coeffs.iter().rev().fold(0.0, |acc, c| acc * inv2 + c) * inv;
-    (z - 0.5) * z.ln() - z + 0.5 * (2.0 * PI).ln() + series
+    c
 }
 
 /// The Riemann zeta function ζ(s) for real s ≠ 1.
@@ -210,9 +173,9 @@ pub fn zeta(s: f64) -> f64 {
         zeta(one_minus)
     };
     if one_minus <= 170.0 {
-        (2.0 * PI).powf(s) / PI * sine * puruspe::gamma(one_minus) * zeta_reflected
+        (2.0 * PI).powf(s) / PI * sine * crate::numerics::special::gamma(one_minus) * zeta_reflected
     } else {
-        let log_mag = s * (2.0 * PI).ln() - PI.ln() + ln_gamma_large(one_minus);
+        let log_mag = s * (2.0 * PI).ln() - PI.ln() + ln_gamma(one_minus);
         log_mag.exp() * sine * zeta_reflected
     }
 }
@@ -294,39 +257,15 @@ mod tests {
     }
 
     #[test]
-    fn stirling_series_matches_factorials() {
-        // ln Γ(n) = ln (n−1)! (A&S 6.1.6); 20! = 2432902008176640000 exactly.
-        assert!(close(
-            ln_gamma_large(21.0),
-            2_432_902_008_176_640_000f64.ln(),
-            1e-15,
-            0.0
-        ));
-        // ln Γ(10.5) = ln(9.5·8.5·…·0.5·√π) (A&S 6.1.12).
-        let direct: f64 = (0..10).map(|k| (0.5 + f64::from(k)).ln()).sum::<f64>() + 0.5 * PI.ln();
-        assert!(close(ln_gamma_large(10.5), direct, 1e-15, 0.0));
-    }
-
-    #[test]
-    fn half_pi_trig_is_exact_at_integers() {
-        // sin, cos of multiples of π/2: common practice, no source.
-        for n in -9i32..=9 {
-            let s = f64::from(n);
-            let (want_sin, want_cos) = match n.rem_euclid(4) {
-                0 => (0.0, 1.0),
-                1 => (1.0, 0.0),
-                2 => (0.0, -1.0),
-                _ => (-1.0, 0.0),
-            };
-            assert!((sin_half_pi(s) - want_sin).abs() < 1e-300, "sin n={n}");
-            assert!((cos_half_pi(s) - want_cos).abs() < 1e-300, "cos n={n}");
-        }
-        // Near a zero the value is π ε / 2 to full relative accuracy.
-        // (ε is taken as the exact offset of the rounded argument.)
-        let (s1, s2) = (3.0 + 1e-9, -4.0 + 1e-9);
-        assert!(close(cos_half_pi(s1), PI * (s1 - 3.0) / 2.0, 1e-15, 0.0));
-        assert!(close(sin_half_pi(s2), PI * (s2 + 4.0) / 2.0, 1e-15, 0.0));
-        assert!(close(sin_half_pi(0.3), (0.15 * PI).sin(), 1e-15, 0.0));
-        assert!(close(cos_half_pi(5.7), (2.85 * PI).cos(), 1e-14, 0.0));
+    fn gamma_taylor_coefficients_match_known_values() {
+        // Γ(1+η) = 1 − γη + (γ²/2 + π²/12) η² + … (from A&S 6.1.33; the η²
+        // coefficient 0.989055995327972555 is mpmath 1.3 taylor(gamma, 1, 2)).
+        let c = gamma_one_plus_taylor(4);
+        assert!(close(c[1], -EULER_GAMMA, 1e-15, 0.0));
+        assert!(close(c[2], 0.989_055_995_327_972_6, 1e-14, 0.0));
+        // Σ c_m η^m at η = 0.1 against Γ(1.1) = 0.951350769866873184 (mpmath 1.3, 30 digits).
+        let c = gamma_one_plus_taylor(30);
+        let v: f64 = c.iter().rev().fold(0.0, |acc, &cm| acc * 0.1 + cm);
+        assert!(close(v, 0.951_350_769_866_873_2, 1e-14, 0.0));
     }
 }

@@ -97,6 +97,7 @@ use crate::model::stable::{MU_MIN, StableDensity};
 use crate::numerics::optimize::{
     JacobianMethod, LeastSquaresProblem, LmOptions, OptimizeError, Termination, least_squares,
 };
+use crate::numerics::special::gamma;
 use crate::numerics::stats::{
     BootstrapSummary, chi2_survival, standard_normal, summarize_bootstrap,
 };
@@ -317,7 +318,7 @@ impl ProfileData {
     /// D from C(0,t) = f_μ(0)/(Dt)^(1/μ), f_μ(0) = Γ(1 + 1/μ)/π (physics notes),
     /// the median over the times with a positive C(0,t); `None` without.
     fn d_from_peak(&self, mu: f64) -> Option<f64> {
-        let f0 = puruspe::gamma(1.0 + 1.0 / mu) / PI;
+        let f0 = gamma(1.0 + 1.0 / mu) / PI;
         let mut estimates: Vec<f64> = (0..self.len())
             .filter(|&k| self.x[k].abs() < 0.5 && self.y[k] > 0.0)
             .map(|k| {
@@ -423,9 +424,7 @@ const TABLE_STEP: f64 = 0.03;
 /// c = min(1, √(2Γ(1/μ)/Γ(3/μ))): the curvature scale of f_μ at 0
 /// (f_μ(u) ≈ f_μ(0)(1 − u²/c²) from the small-x series).
 fn curvature_scale(mu: f64) -> f64 {
-    (2.0 * puruspe::gamma(1.0 / mu) / puruspe::gamma(3.0 / mu))
-        .sqrt()
-        .min(1.0)
+    (2.0 * gamma(1.0 / mu) / gamma(3.0 / mu)).sqrt().min(1.0)
 }
 
 /// The uniform grid w_k = k h, u = c sinh w, shared by tables of one fit.

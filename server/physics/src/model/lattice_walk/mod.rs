@@ -25,9 +25,9 @@ use thiserror::Error;
 use crate::model::correlation_map::{CorrelationMap, MapError};
 use crate::model::couplings::Couplings;
 use crate::numerics::linalg::{LinalgError, symmetric_eigen};
-use crate::numerics::zeta::{
-    cos_half_pi, expm1_over_x, ln_gamma_large, sin_half_pi, zeta, zeta_regular_part,
-};
+use crate::numerics::quadrature::GaussLegendre;
+use crate::numerics::special::{cos_half_pi, gamma, ln_gamma, sin_half_pi};
+use crate::numerics::zeta::{expm1_over_x, zeta, zeta_regular_part};
 
 /// Largest finite chain: the dense eigendecomposition costs O(N³) time and
 /// 2·N² doubles of memory (64 MB at N = 2000).
@@ -418,8 +418,7 @@ fn zeta_over_factorial(sigma: f64, k: usize) -> f64 {
         return zeta(sigma) / fact;
     }
     // Reflection (DLMF 25.4.2): ζ(σ) = (2π)^σ/π sin(πσ/2) Γ(1−σ) ζ(1−σ).
-    let log_mag = sigma * (2.0 * PI).ln() - PI.ln() + ln_gamma_large(1.0 - sigma)
-        - ln_gamma_large(two_k + 1.0);
+    let log_mag = sigma * (2.0 * PI).ln() - PI.ln() + ln_gamma(1.0 - sigma) - ln_gamma(two_k + 1.0);
     log_mag.exp() * sin_half_pi(sigma) * zeta(1.0 - sigma)
 }
 
@@ -452,7 +451,7 @@ impl InfiniteLatticeWalk {
         let power_coeff = if near_odd.is_some() {
             0.0
         } else {
-            -PI / (2.0 * puruspe::gamma(s) * cos_half_pi(s))
+            -PI / (2.0 * gamma(s) * cos_half_pi(s))
         };
         // Terms decay like 2(2π)^{s−1} (θ/2π)^{2k} (2k)^{−s} ≤ … 4^{−k} at
         // θ ≤ π: stop once three successive bounds are negligible.
@@ -531,10 +530,7 @@ impl InfiniteLatticeWalk {
     #[must_use]
     pub fn levy_coefficient(&self) -> Option<f64> {
         if self.alpha < 1.5 {
-            Some(
-                PI * self.gamma0
-                    / (puruspe::gamma(2.0 * self.alpha) * cos_half_pi(2.0 * self.alpha).abs()),
-            )
+            Some(PI * self.gamma0 / (gamma(2.0 * self.alpha) * cos_half_pi(2.0 * self.alpha).abs()))
         } else {
             None
         }
@@ -632,7 +628,8 @@ impl QuadratureGrid {
     /// a width δ with δ^{min(2α,2)} ≤ 1e-18: there the cusp |k|^{2α−1} is
     /// left to a single panel whose error is below δ·(At δ^{2α−1}) … ≤ δ.
     fn new(x_max: u64, walk: &InfiniteLatticeWalk) -> Self {
-        let (gl_x, gl_w) = gauss_legendre_20();
+        let rule = gauss_legendre_20();
+        let (gl_x, gl_w) = (rule.nodes(), rule.weights());
         let uniform = ((x_max as f64 + 1.0) / 2.0).ceil().max(8.0) as usize;
         let h = PI / uniform as f64;
         let mut edges = Vec::new();
@@ -689,42 +686,11 @@ impl QuadratureGrid {
     }
 }
 
-/// 20-point Gauss–Legendre nodes and weights on [−1, 1], from Newton's
-/// iteration on the three-term recurrence of P_20 (A&S 25.4.29–30);
-/// accurate to a few ulps.
-fn gauss_legendre_20() -> &'static (Vec<f64>, Vec<f64>) {
-    static RULE: OnceLock<(Vec<f64>, Vec<f64>)> = OnceLock::new();
-    RULE.get_or_init(|| {
-        const N: usize = 20;
-        let mut nodes = vec![0.0; N];
-        let mut weights = vec![0.0; N];
-        for i in 0..N / 2 {
-            // Chebyshev-like first guess for the i-th largest root.
-            let mut z = (PI * (i as f64 + 0.75) / (N as f64 + 0.5)).cos();
-            let mut derivative = 0.0;
-            for _ in 0..100 {
-                let (mut p0, mut p1) = (1.0, z);
-                for n in 2..=N {
-                    let nf = n as f64;
-                    let p2 = ((2.0 * nf - 1.0) * z * p1 - (nf - 1.0) * p0) / nf;
-                    p0 = p1;
-                    p1 = p2;
-                }
-                derivative = N as f64 * (z * p1 - p0) / (z * z - 1.0);
-                let step = p1 / derivative;
-                z -= step;
-                if step.abs() < 1e-16 {
-                    break;
-                }
-            }
-            let w = 2.0 / ((1.0 - z * z) * derivative * derivative);
-            nodes[i] = -z;
-            nodes[N - 1 - i] = z;
-            weights[i] = w;
-            weights[N - 1 - i] = w;
-        }
-        (nodes, weights)
-    })
+/// The 20-point Gauss–Legendre rule on [−1, 1] (`numerics::quadrature`),
+/// built once.
+fn gauss_legendre_20() -> &'static GaussLegendre {
+    static RULE: OnceLock<GaussLegendre> = OnceLock::new();
+    RULE.get_or_init(|| GaussLegendre::new(20))
 }
 
 #[cfg(test)]

@@ -77,9 +77,8 @@ use thiserror::Error;
 use self::series::GeneralStable;
 
 use crate::numerics::quadrature::{GaussLegendre, integrate_adaptive};
-use crate::numerics::special::{
-    erfc, gamma, gamma_one_plus_taylor, gamma_ratio, sin_pi, sin_pi_product,
-};
+use crate::numerics::special::{erfc, gamma, gamma_ratio, sin_pi, sin_pi_product};
+use crate::numerics::zeta::gamma_one_plus_taylor;
 
 /// Smallest supported stable index. Already at μ = 0.3 the small-x series
 /// holds only for x ≲ 1e-5 and the large-x series only from x ≈ 0.2 (the
