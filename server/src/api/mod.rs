@@ -416,7 +416,7 @@ async fn shot_pairs(
     State(service): State<Service>,
     Path((token, id)): Path<(String, i64)>,
     query: QueryResult<PairsQuery>,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<crate::service::shots::ShotPairs>> {
     let access = service.access(&token).await?;
     let q = from_query(query)?;
     Ok(Json(service.shot_pairs(&access, id, q.source).await?))
@@ -457,7 +457,7 @@ async fn couplings(
     Path(token): Path<String>,
     query: QueryResult<CouplingsQuery>,
     body: Bytes,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<crate::service::shots::CouplingsAnswer>> {
     service.access(&token).await?;
     let q = from_query(query)?;
     Ok(Json(service.couplings(body.to_vec(), q.convention).await?))
@@ -655,7 +655,7 @@ async fn collapse_quality(
     State(service): State<Service>,
     Path((token, id)): Path<(String, i64)>,
     query: QueryResult<QualityQuery>,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<crate::service::quality::QualityAnswer>> {
     let access = service.access(&token).await?;
     let q = from_query(query)?;
     let windows = Windows {
@@ -672,7 +672,7 @@ async fn run_theory(
     State(service): State<Service>,
     Path((token, id)): Path<(String, i64)>,
     body: Bytes,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<crate::service::theory::TheoryReply>> {
     let access = service.access(&token).await?;
     let request: TheoryRequest = parse_json(&body, "theory request")?;
     Ok(Json(service.theory(&access, id, request).await?))
@@ -693,7 +693,7 @@ async fn scaling_function(
     State(service): State<Service>,
     Path(token): Path<String>,
     query: QueryResult<ScalingQuery>,
-) -> ApiResult<Json<Value>> {
+) -> ApiResult<Json<crate::service::theory::ScalingFunction>> {
     service.access(&token).await?;
     let q = from_query(query)?;
     Ok(Json(service.scaling_function(

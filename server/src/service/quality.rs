@@ -16,11 +16,21 @@
 use std::collections::VecDeque;
 use std::sync::{Arc, Mutex, PoisonError};
 
-use serde_json::{Value, json};
+use serde::Serialize;
 use spreadscope_physics::fit::collapse::CollapseQuality;
 
 use super::fits::Windows;
 use super::{Access, Service, ServiceError, ServiceResult};
+
+/// The collapse quality at one z, as the slider reads it.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct QualityAnswer {
+    pub z: f64,
+    /// S(z) (Houdayer–Hartmann; ≈ 1 for a good collapse).
+    pub quality: f64,
+    /// Pairs of points that entered S.
+    pub n_points: usize,
+}
 
 /// Prepared measures kept at once (a few datasets × a few windows).
 const CAPACITY: usize = 16;
@@ -101,7 +111,7 @@ impl Service {
         dataset: i64,
         windows: Windows,
         z: f64,
-    ) -> ServiceResult<Value> {
+    ) -> ServiceResult<QualityAnswer> {
         if !(z.is_finite() && z > 0.0) {
             return Err(ServiceError::BadRequest(
                 "parameter `z`: must be a positive number".into(),
@@ -141,7 +151,11 @@ impl Service {
         let value = tokio::task::spawn_blocking(move || measure.quality_value(z))
             .await
             .map_err(|e| ServiceError::Internal(format!("collapse quality: {e}")))?;
-        Ok(json!({"z": z, "quality": value.s, "n_points": value.n_pairs}))
+        Ok(QualityAnswer {
+            z,
+            quality: value.s,
+            n_points: value.n_pairs,
+        })
     }
 
     /// The slider's cache (tests read its size).

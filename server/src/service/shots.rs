@@ -3,11 +3,13 @@
 //! map becomes a dataset whose notes carry the estimator's provenance.
 //! Also the option spellings shared by the API and `spreadscope correlate`.
 
-use serde::Deserialize;
-use serde_json::{Value, json};
-use spreadscope_physics::fit::couplings_fit::{CouplingsFitOptions, fit_power_law};
+use serde::{Deserialize, Serialize};
+use spreadscope_physics::fit::couplings_fit::{
+    CouplingsFitOptions, CouplingsFitReport, fit_power_law,
+};
 use spreadscope_physics::model::shots::{
-    EstimateOptions, EstimateProvenance, Readout, ShotEstimate, SourceWindow, estimate,
+    EstimateOptions, EstimateProvenance, Readout, ShotEstimate, SourceWindow, SumRuleEstimate,
+    estimate,
 };
 
 use super::{Access, DatasetSummary, Service, ServiceError, ServiceResult, StoredDataset};
@@ -167,6 +169,43 @@ fn stored_format(label: &str) -> ShotFormat {
     }
 }
 
+/// The site-resolved correlations C_{i,source}(t) of a shot dataset,
+/// `[time][site]`, with the estimator's sum rule and counts.
+#[derive(Debug, Clone, Serialize)]
+pub struct ShotPairs {
+    pub sites: usize,
+    pub source: usize,
+    pub times: Vec<f64>,
+    #[serde(rename = "C")]
+    pub c: Vec<Vec<f64>>,
+    pub err: Vec<Vec<f64>>,
+    pub sum_rule: Vec<SumRuleEstimate>,
+    pub states_per_time: Vec<usize>,
+    pub shots_per_time: Vec<u64>,
+    pub warnings: Vec<String>,
+    pub options: ShotOptions,
+}
+
+/// A coupling matrix (flip-flop convention, `[i][j]`) and its power-law fit.
+#[derive(Debug, Clone, Serialize)]
+pub struct CouplingsAnswer {
+    pub sites: usize,
+    pub matrix: Vec<Vec<f64>>,
+    pub fit: CouplingsFit,
+    pub notes: Vec<String>,
+}
+
+/// The power-law fit with J under the page's name beside the report.
+#[derive(Debug, Clone, Serialize)]
+pub struct CouplingsFit {
+    #[serde(rename = "J")]
+    pub j: f64,
+    #[serde(rename = "J_err")]
+    pub j_err: f64,
+    #[serde(flatten)]
+    pub report: CouplingsFitReport,
+}
+
 impl Service {
     /// The site-resolved correlations C_{i,source}(t) of a dataset made from
     /// shots, re-estimated from the kept shot file with its upload options.
@@ -178,7 +217,7 @@ impl Service {
         access: &Access,
         dataset: i64,
         source: Option<usize>,
-    ) -> ServiceResult<Value> {
+    ) -> ServiceResult<ShotPairs> {
         let session_id = access.session.id;
         let (format, bytes, options) = self
             .db(move |s| s.shot_file(session_id, dataset))
@@ -204,18 +243,18 @@ impl Service {
                     .map(|ti| (0..sites).map(|i| a[(ti, i, source)]).collect())
                     .collect()
             };
-            Ok(json!({
-                "sites": sites,
-                "source": source,
-                "times": result.pairs.times,
-                "C": pick(&result.pairs.values),
-                "err": pick(&result.pairs.errors),
-                "sum_rule": result.sum_rule,
-                "states_per_time": result.states_per_time,
-                "shots_per_time": result.shots_per_time,
-                "warnings": result.warnings,
-                "options": options,
-            }))
+            Ok(ShotPairs {
+                sites,
+                source,
+                times: result.pairs.times.clone(),
+                c: pick(&result.pairs.values),
+                err: pick(&result.pairs.errors),
+                sum_rule: result.sum_rule,
+                states_per_time: result.states_per_time,
+                shots_per_time: result.shots_per_time,
+                warnings: result.warnings,
+                options,
+            })
         })
         .await
     }
@@ -253,7 +292,7 @@ impl Service {
         &self,
         bytes: Vec<u8>,
         convention: CouplingConvention,
-    ) -> ServiceResult<Value> {
+    ) -> ServiceResult<CouplingsAnswer> {
         self.heavy(move || {
             let read = parse_couplings(
                 std::io::Cursor::new(bytes),
@@ -267,16 +306,16 @@ impl Service {
                 .map_err(|e| ServiceError::BadRequest(format!("power-law fit: {e}")))?;
             let m = read.couplings.matrix();
             let matrix: Vec<Vec<f64>> = m.outer_iter().map(|r| r.to_vec()).collect();
-            let mut fit_value =
-                serde_json::to_value(&fit).map_err(|e| ServiceError::Internal(e.to_string()))?;
-            fit_value["J"] = json!(fit.strength);
-            fit_value["J_err"] = json!(fit.strength_err);
-            Ok(json!({
-                "sites": read.couplings.sites(),
-                "matrix": matrix,
-                "fit": fit_value,
-                "notes": read.notes,
-            }))
+            Ok(CouplingsAnswer {
+                sites: read.couplings.sites(),
+                matrix,
+                fit: CouplingsFit {
+                    j: fit.strength,
+                    j_err: fit.strength_err,
+                    report: fit,
+                },
+                notes: read.notes,
+            })
         })
         .await
     }

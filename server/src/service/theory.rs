@@ -7,7 +7,6 @@
 use std::sync::atomic::{AtomicBool, Ordering};
 
 use serde::{Deserialize, Serialize};
-use serde_json::{Value, json};
 use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::model::couplings::Couplings;
 use spreadscope_physics::model::free_fermion::FreeFermionChain;
@@ -324,6 +323,87 @@ pub fn model_map(
     }
 }
 
+/// The answer of the theory route: a plan, or the model on the grid.
+#[derive(Debug, Clone, Serialize)]
+#[serde(untagged)]
+pub enum TheoryReply {
+    Plan(PlanAnswer),
+    Map(Box<TheoryAnswer>),
+}
+
+/// A plan said before running, or why none can be made yet.
+#[derive(Debug, Clone, Serialize)]
+pub struct PlanAnswer {
+    pub ready: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub reason: Option<String>,
+    #[serde(flatten)]
+    pub plan: Option<Plan>,
+}
+
+impl PlanAnswer {
+    fn not_ready(reason: String) -> Self {
+        Self {
+            ready: false,
+            reason: Some(reason),
+            plan: None,
+        }
+    }
+}
+
+/// α as the overlay states it: a number, or words (nearest neighbours, a
+/// coupling matrix).
+#[derive(Debug, Clone, Copy, Serialize)]
+#[serde(untagged)]
+pub enum AlphaValue {
+    Number(f64),
+    Words(&'static str),
+}
+
+/// The values a model run used.
+#[derive(Debug, Clone, Serialize)]
+pub struct TheoryParameters {
+    pub sites: usize,
+    pub source: usize,
+    pub alpha: AlphaValue,
+    pub coupling: f64,
+    pub delta: f64,
+    pub gamma0: f64,
+    pub order: usize,
+    pub samples: usize,
+    pub trajectories: usize,
+    pub seed: u64,
+    pub coupling_matrix: bool,
+}
+
+/// A model on a dataset's grid (`[time][offset]`, null where the chain has
+/// no such offset or the data are missing) and the residual data − model.
+#[derive(Debug, Clone, Serialize)]
+pub struct TheoryAnswer {
+    pub model: TheoryModel,
+    /// How it was computed, in words.
+    pub method: String,
+    pub parameters: TheoryParameters,
+    pub x: Vec<i32>,
+    pub t: Vec<f64>,
+    #[serde(rename = "C")]
+    pub c: Vec<Vec<Option<f64>>>,
+    /// One-sigma errors of a sampled method.
+    pub err: Option<Vec<Vec<Option<f64>>>>,
+    pub residual: Vec<Vec<Option<f64>>>,
+    pub warnings: Vec<String>,
+}
+
+/// The model scaling function sampled for the collapse view.
+#[derive(Debug, Clone, Serialize)]
+pub struct ScalingFunction {
+    pub mu: f64,
+    #[serde(rename = "D")]
+    pub d: f64,
+    pub u: Vec<f64>,
+    pub f: Vec<f64>,
+}
+
 /// A request from the dashboard; chain data default from the dataset's
 /// metadata.
 #[derive(Debug, Clone, Deserialize)]
@@ -392,27 +472,26 @@ impl Service {
         access: &Access,
         dataset: i64,
         request: TheoryRequest,
-    ) -> ServiceResult<Value> {
+    ) -> ServiceResult<TheoryReply> {
         let (summary, data) = self.dataset(access, dataset).await?;
         let spec = match (spec_of(&request, &summary.meta), request.plan) {
             (Ok(spec), _) => spec,
             // A plan that cannot be made yet is an answer, not a failure:
             // the page asks while a person is still filling the form.
             (Err(ServiceError::BadRequest(reason)), true) => {
-                return Ok(json!({"ready": false, "reason": reason}));
+                return Ok(TheoryReply::Plan(PlanAnswer::not_ready(reason)));
             }
             (Err(e), _) => return Err(e),
         };
         if request.plan {
-            return match spec.plan(data.times()) {
-                Ok(plan) => {
-                    let mut value = serde_json::to_value(plan)
-                        .map_err(|e| ServiceError::Internal(e.to_string()))?;
-                    value["ready"] = json!(true);
-                    Ok(value)
-                }
-                Err(reason) => Ok(json!({"ready": false, "reason": reason})),
-            };
+            return Ok(TheoryReply::Plan(match spec.plan(data.times()) {
+                Ok(plan) => PlanAnswer {
+                    ready: true,
+                    reason: None,
+                    plan: Some(plan),
+                },
+                Err(reason) => PlanAnswer::not_ready(reason),
+            }));
         }
         let session_id = access.session.id;
         let cancel = match &request.job {
@@ -442,11 +521,9 @@ impl Service {
         let (model, how) = outcome?;
         let mut answer = on_data_grid(&data, &model, &spec, &how);
         if how.starts_with("semiclassical") {
-            if let Some(w) = answer["warnings"].as_array_mut() {
-                w.push(json!(DTWA_CAVEAT));
-            }
+            answer.warnings.push(DTWA_CAVEAT.to_string());
         }
-        Ok(answer)
+        Ok(TheoryReply::Map(Box::new(answer)))
     }
 
     /// The model scaling function for the collapse view:
@@ -462,7 +539,7 @@ impl Service {
         u_min: f64,
         u_max: f64,
         n: usize,
-    ) -> ServiceResult<Value> {
+    ) -> ServiceResult<ScalingFunction> {
         if !(d.is_finite() && d > 0.0) {
             return Err(ServiceError::BadRequest(
                 "parameter `D`: must be a positive number".into(),
@@ -484,7 +561,7 @@ impl Service {
             .map(|i| u_min + (u_max - u_min) * i as f64 / (n - 1) as f64)
             .collect();
         let f: Vec<f64> = u.iter().map(|&x| density.pdf(x)).collect();
-        Ok(json!({"mu": mu, "D": d, "u": u, "f": f}))
+        Ok(ScalingFunction { mu, d, u, f })
     }
 }
 
@@ -562,7 +639,7 @@ fn on_data_grid(
     model: &CorrelationMap,
     spec: &ModelSpec,
     how: &str,
-) -> Value {
+) -> TheoryAnswer {
     let mut c = Vec::with_capacity(data.n_times());
     let mut residual = Vec::with_capacity(data.n_times());
     let mut err = Vec::with_capacity(data.n_times());
@@ -594,28 +671,33 @@ fn on_data_grid(
             spec.sites, spec.source
         ));
     }
-    let has_err = model.errors().is_some();
-    json!({
-        "model": spec.model,
-        "method": how,
-        "parameters": {
-            "sites": spec.sites, "source": spec.source,
-            "alpha": if spec.matrix.is_some() {
-                json!("from the coupling matrix")
+    TheoryAnswer {
+        model: spec.model,
+        method: how.to_string(),
+        parameters: TheoryParameters {
+            sites: spec.sites,
+            source: spec.source,
+            alpha: if spec.matrix.is_some() {
+                AlphaValue::Words("from the coupling matrix")
             } else if spec.alpha.is_finite() {
-                json!(spec.alpha)
+                AlphaValue::Number(spec.alpha)
             } else {
-                json!("inf")
+                AlphaValue::Words("inf")
             },
-            "coupling": spec.coupling, "delta": spec.delta, "gamma0": spec.gamma0,
-            "order": spec.order, "samples": spec.samples, "trajectories": spec.trajectories,
-            "seed": spec.seed, "coupling_matrix": spec.matrix.is_some(),
+            coupling: spec.coupling,
+            delta: spec.delta,
+            gamma0: spec.gamma0,
+            order: spec.order,
+            samples: spec.samples,
+            trajectories: spec.trajectories,
+            seed: spec.seed,
+            coupling_matrix: spec.matrix.is_some(),
         },
-        "x": data.offsets(),
-        "t": data.times(),
-        "C": c,
-        "err": if has_err { json!(err) } else { Value::Null },
-        "residual": residual,
-        "warnings": warnings,
-    })
+        x: data.offsets().to_vec(),
+        t: data.times().to_vec(),
+        c,
+        err: model.errors().is_some().then_some(err),
+        residual,
+        warnings,
+    }
 }
