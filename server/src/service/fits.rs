@@ -10,20 +10,27 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::{Arc, Mutex};
 
 use serde::{Deserialize, Serialize};
-use serde_json::{Map, Value, json};
 use spreadscope_physics::CorrelationMap;
-use spreadscope_physics::fit::analysis::{AnalysisError, AnalysisOptions, analyze_with_progress};
-use spreadscope_physics::fit::collapse::{CollapseError, CollapseOptions, CollapseQuality};
+use spreadscope_physics::fit::analysis::{
+    AnalysisError, AnalysisOptions, AnalysisReport, analyze_with_progress,
+};
+use spreadscope_physics::fit::collapse::{
+    CollapseError, CollapseOptions, CollapseQuality, CollapseReport,
+};
 use spreadscope_physics::fit::lattice_walk_fit::{
-    LatticeWalkFitOptions, SourceAverage, fit_lattice_walk, walk_window_start,
+    LatticeWalkFitOptions, LatticeWalkFitReport, SourceAverage, fit_lattice_walk, walk_window_start,
 };
 use spreadscope_physics::fit::profile::{
-    ProfileModel, ProfileOptions, compare_profiles, fit_profile,
+    ProfileComparison, ProfileModel, ProfileOptions, ProfileReport, compare_profiles, fit_profile,
 };
-use spreadscope_physics::fit::short_time_check::{ShortTimeOptions, check_short_time};
-use spreadscope_physics::fit::tail::{TimeWindow, fit_tail, local_exponent};
+use spreadscope_physics::fit::short_time_check::{
+    ShortTimeOptions, ShortTimeReport, check_short_time,
+};
+use spreadscope_physics::fit::tail::{
+    LocalExponent, TailReport, TimeWindow, fit_tail, local_exponent,
+};
 use spreadscope_physics::fit::verdict::{DConvention, EstimatorLine, Standing, Verdict};
-use spreadscope_physics::fit::width::{WidthOptions, fit_width};
+use spreadscope_physics::fit::width::{WidthOptions, WidthReport, fit_width};
 use spreadscope_physics::fit::windows::{self as window_rule, Bounds, DEFAULT_BOOTSTRAP};
 use spreadscope_physics::model::lattice_walk::LatticeWalk;
 use spreadscope_physics::model::stable::StableDensity;
@@ -252,18 +259,18 @@ pub struct FitResult {
     pub d_convention: &'static str,
     pub seed: Option<u64>,
     pub parameters: BTreeMap<String, Parameter>,
-    pub quality: Map<String, Value>,
+    pub quality: Quality,
     pub termination: String,
     pub warnings: Vec<String>,
     pub program_version: &'static str,
     pub conventions: &'static str,
     /// The estimator's full report.
-    pub report: Value,
+    pub report: FitReport,
     /// Curves to draw over the data, computed from the fitted parameters:
     /// `tail` `{t, C}` (the fitted C(0,t) law), `profile` `{x, t, C}` (the
     /// fitted model on the window's grid) and `residual` `{x, t, values,
     /// err}` (data − model).
-    pub overlay: Option<Value>,
+    pub overlay: Option<Overlay>,
     /// The headline (only for `analysis`).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub verdict: Option<Verdict>,
@@ -303,26 +310,120 @@ impl Jobs {
     }
 }
 
-fn termination_text(t: impl std::fmt::Debug) -> String {
-    format!("{t:?}")
-}
-
-fn to_value(report: &impl Serialize) -> ServiceResult<Value> {
-    serde_json::to_value(report).map_err(|e| ServiceError::Internal(e.to_string()))
-}
-
 fn bad(e: impl std::fmt::Display) -> ServiceError {
     ServiceError::BadRequest(format!("fit: {e}"))
 }
 
-type Computed = (
-    BTreeMap<String, Parameter>,
-    Map<String, Value>,
-    String,
-    Vec<String>,
-    Value,
-    Option<u64>,
-);
+/// What one estimator gave, before the envelope is put around it.
+struct Computed {
+    parameters: BTreeMap<String, Parameter>,
+    quality: Quality,
+    termination: String,
+    warnings: Vec<String>,
+    report: FitReport,
+    seed: Option<u64>,
+}
+
+/// How good a fit is, and the choices it made; a field is absent where the
+/// estimator does not have it.
+#[derive(Debug, Clone, Default, Serialize)]
+pub struct Quality {
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub chi2_dof: Option<f64>,
+    /// Present (possibly null: no data errors) for the tail fit only.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub p_value: Option<Option<f64>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub collapse_quality: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub n_points: Option<usize>,
+    /// Transport class of the verdict (analysis).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub class: Option<String>,
+    /// The estimator the verdict took (analysis).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub estimator: Option<String>,
+    /// The profile model the comparison preferred.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub preferred: Option<String>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub delta_aic: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub delta_bic: Option<f64>,
+    /// The profile model fitted.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub model: Option<String>,
+}
+
+/// The estimator's full report, as the physics crate gives it.
+#[derive(Debug, Clone, Serialize)]
+#[serde(untagged)]
+pub enum FitReport {
+    Tail(Box<TailWithLocal>),
+    Width(Box<WidthReport>),
+    Collapse(Box<CollapseReport>),
+    Profile(Box<ProfileReport>),
+    ProfileComparison(Box<ProfileComparison>),
+    LatticeWalk(Box<LatticeWalkFitReport>),
+    ShortTime(Box<ShortTimeReport>),
+    Analysis(Box<AnalysisWithText>),
+}
+
+/// The tail fit with the local exponent over the whole map.
+#[derive(Debug, Clone, Serialize)]
+pub struct TailWithLocal {
+    #[serde(flatten)]
+    pub report: TailReport,
+    pub local_exponent: Vec<LocalExponent>,
+}
+
+/// The analysis with its plain-text table.
+#[derive(Debug, Clone, Serialize)]
+pub struct AnalysisWithText {
+    #[serde(flatten)]
+    pub report: AnalysisReport,
+    pub text: String,
+}
+
+/// Curves to draw over the data.
+#[derive(Debug, Clone, Default, Serialize)]
+pub struct Overlay {
+    /// The fitted C(0,t) law.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub tail: Option<TailCurve>,
+    /// The fitted model on the window's grid.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub profile: Option<GridCurve>,
+    /// Data − model on the same grid.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub residual: Option<ResidualGrid>,
+}
+
+/// C(0,t) of a fitted law at `t`.
+#[derive(Debug, Clone, Serialize)]
+pub struct TailCurve {
+    pub t: Vec<f64>,
+    #[serde(rename = "C")]
+    pub c: Vec<f64>,
+}
+
+/// A model C(x,t), `[time][offset]`.
+#[derive(Debug, Clone, Serialize)]
+pub struct GridCurve {
+    pub x: Vec<i32>,
+    pub t: Vec<f64>,
+    #[serde(rename = "C")]
+    pub c: Vec<Vec<f64>>,
+}
+
+/// Data − model, `[time][offset]`, null where the data are missing.
+#[derive(Debug, Clone, Serialize)]
+pub struct ResidualGrid {
+    pub x: Vec<i32>,
+    pub t: Vec<f64>,
+    pub values: Vec<Vec<Option<f64>>>,
+    pub err: Option<Vec<Vec<Option<f64>>>>,
+}
 
 /// What the analysis decided besides its parameters: the verdict and the
 /// scaling window it used (typed, so the envelope never reads them back
@@ -398,7 +499,7 @@ fn compute(
 ) -> ServiceResult<Computed> {
     let map = &input.map;
     let window = TimeWindow::default();
-    let mut quality = Map::new();
+    let mut quality = Quality::default();
     let mut warnings = Vec::new();
     let mut parameters = BTreeMap::new();
     match method {
@@ -409,24 +510,26 @@ fn compute(
                 "amplitude".into(),
                 param(report.amplitude, report.amplitude_err),
             );
-            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
-            quality.insert("p_value".into(), json!(report.p_value));
+            quality.chi2_dof = Some(report.chi2_dof);
+            quality.p_value = Some(report.p_value);
             if report.points_excluded_nonpositive > 0 {
                 warnings.push(format!(
                     "{} times with C(0,t) ≤ 0 were left out of the log-space fit",
                     report.points_excluded_nonpositive
                 ));
             }
-            let mut value = to_value(&report)?;
-            value["local_exponent"] = to_value(&local_exponent(map).map_err(bad)?)?;
-            Ok((
+            let local = local_exponent(map).map_err(bad)?;
+            Ok(Computed {
                 parameters,
                 quality,
-                termination_text(report.termination),
+                termination: report.termination.words().to_string(),
                 warnings,
-                value,
-                None,
-            ))
+                report: FitReport::Tail(Box::new(TailWithLocal {
+                    report,
+                    local_exponent: local,
+                })),
+                seed: None,
+            })
         }
         FitMethod::Width => {
             let report = fit_width(
@@ -439,21 +542,21 @@ fn compute(
             )
             .map_err(bad)?;
             parameters.insert("z".into(), param(report.z, report.z_err));
-            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
+            quality.chi2_dof = Some(report.chi2_dof);
             if report.times_beyond_coverage > 0 {
                 warnings.push(format!(
                     "{} times have a width beyond the map's symmetric coverage and were left out",
                     report.times_beyond_coverage
                 ));
             }
-            Ok((
+            Ok(Computed {
                 parameters,
                 quality,
-                termination_text(report.termination),
+                termination: report.termination.words().to_string(),
                 warnings,
-                to_value(&report)?,
-                None,
-            ))
+                report: FitReport::Width(Box::new(report)),
+                seed: None,
+            })
         }
         FitMethod::Collapse => {
             let quality_fn = CollapseQuality::new(map).map_err(bad)?;
@@ -484,9 +587,9 @@ fn compute(
                 d.bias = report.d_bias;
                 parameters.insert("D".into(), d_in(d, report.z, options.d_convention));
             }
-            quality.insert("collapse_quality".into(), json!(report.quality_min));
-            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
-            quality.insert("n_points".into(), json!(report.n_points));
+            quality.collapse_quality = Some(report.quality_min);
+            quality.chi2_dof = Some(report.chi2_dof);
+            quality.n_points = Some(report.n_points);
             if report.poor_fit {
                 warnings.push(format!(
                     "the curves do not fall on one master curve within their errors \
@@ -503,14 +606,14 @@ fn compute(
                         .into(),
                 );
             }
-            Ok((
+            Ok(Computed {
                 parameters,
                 quality,
-                termination_text(report.termination),
+                termination: report.termination.words().to_string(),
                 warnings,
-                to_value(&report)?,
-                Some(report.seed),
-            ))
+                seed: Some(report.seed),
+                report: FitReport::Collapse(Box::new(report)),
+            })
         }
         FitMethod::Profile => profile(map, options),
         FitMethod::LatticeWalk => {
@@ -523,18 +626,18 @@ fn compute(
             parameters.insert("gamma0".into(), param(report.gamma0, report.gamma0_err));
             parameters.insert("alpha".into(), param(report.alpha, report.alpha_err));
             parameters.insert("z".into(), param(report.z, report.z_err));
-            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
+            quality.chi2_dof = Some(report.chi2_dof);
             if report.alpha_at_bound {
                 warnings.push("α ended on the edge of its allowed range: the fit did not find an interior optimum".into());
             }
-            Ok((
+            Ok(Computed {
                 parameters,
                 quality,
-                termination_text(report.termination),
+                termination: report.termination.words().to_string(),
                 warnings,
-                to_value(&report)?,
-                None,
-            ))
+                report: FitReport::LatticeWalk(Box::new(report)),
+                seed: None,
+            })
         }
         FitMethod::ShortTime => {
             let report = check_short_time(
@@ -553,15 +656,15 @@ fn compute(
             if let Some(n) = report.neighbour {
                 parameters.insert("K01_sq".into(), param(n.value, n.err));
             }
-            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
-            Ok((
+            quality.chi2_dof = Some(report.chi2_dof);
+            Ok(Computed {
                 parameters,
                 quality,
-                termination_text(report.termination),
+                termination: report.termination.words().to_string(),
                 warnings,
-                to_value(&report)?,
-                None,
-            ))
+                report: FitReport::ShortTime(Box::new(report)),
+                seed: None,
+            })
         }
         FitMethod::Analysis => {
             let sites = options
@@ -617,19 +720,17 @@ fn compute(
                 parameters.insert("mu".into(), measured(mu));
             }
             if let Some(c) = &report.collapse {
-                quality.insert("collapse_quality".into(), json!(c.quality));
+                quality.collapse_quality = Some(c.quality);
             }
             if let Some(p) = &report.profile {
-                quality.insert("chi2_dof".into(), json!(p.preferred.chi2_dof));
+                quality.chi2_dof = Some(p.preferred.chi2_dof);
             }
-            quality.insert("class".into(), json!(v.class.name()));
-            quality.insert("estimator".into(), json!(v.estimator));
+            quality.class = Some(v.class.name().to_string());
+            quality.estimator = Some(v.estimator.clone());
             for w in &report.warnings {
                 warnings.push(w.message.clone());
             }
             let text = crate::analysis_text::render(&report);
-            let mut value = to_value(&report)?;
-            value["text"] = json!(text);
             *analysis_out = Some(AnalysisHeadline {
                 verdict: report.verdict.clone(),
                 windows: Windows {
@@ -639,14 +740,14 @@ fn compute(
                 },
                 rule: report.windows.rule.clone(),
             });
-            Ok((
+            Ok(Computed {
                 parameters,
                 quality,
-                "completed".into(),
+                termination: "completed".into(),
                 warnings,
-                value,
-                Some(options.seed),
-            ))
+                report: FitReport::Analysis(Box::new(AnalysisWithText { report, text })),
+                seed: Some(options.seed),
+            })
         }
     }
 }
@@ -711,7 +812,7 @@ fn window_errors(
         };
         let mut none = None;
         if let Ok(c) = compute(method, &member, &quick, progress, &mut none) {
-            for (name, p) in c.0 {
+            for (name, p) in c.parameters {
                 values.entry(name).or_default().push(p.value);
             }
         }
@@ -729,26 +830,27 @@ fn window_errors(
 
 /// The fitted curves of a result, on the grid of its window.
 fn overlay(
-    method: FitMethod,
     input: &FitInput,
     parameters: &BTreeMap<String, Parameter>,
-    report: &Value,
-) -> Option<Value> {
+    report: &FitReport,
+) -> Option<Overlay> {
     let value = |name: &str| parameters.get(name).map(|p| p.value);
     let map = &input.map;
-    match method {
-        FitMethod::Tail => {
+    match report {
+        FitReport::Tail(tail) => {
             let (a, z) = (value("amplitude")?, value("z")?);
-            let t0 = report["t_window"][0].as_f64()?;
-            let t1 = report["t_window"][1].as_f64()?;
+            let [t0, t1] = tail.report.t_window;
             let n = 40;
             let t: Vec<f64> = (0..n)
                 .map(|i| t0 * (t1 / t0).powf(i as f64 / (n - 1) as f64))
                 .collect();
             let c: Vec<f64> = t.iter().map(|&t| a * t.powf(-1.0 / z)).collect();
-            Some(json!({"tail": {"t": t, "C": c}}))
+            Some(Overlay {
+                tail: Some(TailCurve { t, c }),
+                ..Overlay::default()
+            })
         }
-        FitMethod::Profile | FitMethod::Analysis => {
+        FitReport::Profile(_) | FitReport::ProfileComparison(_) | FitReport::Analysis(_) => {
             let (d, mu) = (value("D")?, value("mu")?);
             let model = map.times().iter().map(|&t| {
                 let density = StableDensity::new(mu, (d * t).powf(1.0 / mu)).ok()?;
@@ -760,33 +862,53 @@ fn overlay(
                 )
             });
             let model: Option<Vec<Vec<f64>>> = model.collect();
-            grid_overlay(map, &model?)
+            Some(grid_overlay(map, model?))
         }
-        FitMethod::LatticeWalk => {
+        FitReport::LatticeWalk(walk_fit) => {
             let (gamma0, alpha) = (value("gamma0")?, value("alpha")?);
-            let sites = usize::try_from(report["sites"].as_u64()?).ok()?;
-            let source = usize::try_from(report["source"].as_u64()?).ok()?;
-            let walk = LatticeWalk::power_law(sites, gamma0, alpha).ok()?;
-            let p = walk.propagate(source, map.times()).ok()?;
+            let walk = LatticeWalk::power_law(walk_fit.sites, gamma0, alpha).ok()?;
+            // The model is formed as the fit formed it: from the one source,
+            // or averaged over the window of sources (and symmetrised).
+            let average = walk_fit
+                .average
+                .unwrap_or(SourceAverage::single(walk_fit.source));
+            let from: Vec<ndarray::Array2<f64>> = (average.first..=average.last)
+                .map(|j| walk.propagate(j, map.times()).ok())
+                .collect::<Option<_>>()?;
+            let sites = walk_fit.sites as i64;
+            let mean_at = |ti: usize, x: i32| -> Option<f64> {
+                let (mut sum, mut count) = (0.0, 0u32);
+                for (q, j) in (average.first..=average.last).enumerate() {
+                    let i = j as i64 + i64::from(x);
+                    if (0..sites).contains(&i) {
+                        sum += from[q][(ti, i as usize)];
+                        count += 1;
+                    }
+                }
+                (count > 0).then(|| sum / f64::from(count))
+            };
             let model: Option<Vec<Vec<f64>>> = (0..map.n_times())
                 .map(|ti| {
                     map.offsets()
                         .iter()
                         .map(|&x| {
-                            let i = usize::try_from(i64::from(x) + source as i64).ok()?;
-                            p.get((ti, i)).copied()
+                            if average.symmetrised {
+                                Some(0.5 * (mean_at(ti, x)? + mean_at(ti, -x)?))
+                            } else {
+                                mean_at(ti, x)
+                            }
                         })
                         .collect()
                 })
                 .collect();
-            grid_overlay(map, &model?)
+            Some(grid_overlay(map, model?))
         }
-        FitMethod::Width | FitMethod::Collapse | FitMethod::ShortTime => None,
+        FitReport::Width(_) | FitReport::Collapse(_) | FitReport::ShortTime(_) => None,
     }
 }
 
 /// `profile` and `residual` overlays from model values on the map's grid.
-fn grid_overlay(map: &CorrelationMap, model: &[Vec<f64>]) -> Option<Value> {
+fn grid_overlay(map: &CorrelationMap, model: Vec<Vec<f64>>) -> Overlay {
     let residual: Vec<Vec<Option<f64>>> = (0..map.n_times())
         .map(|ti| {
             (0..map.n_sites())
@@ -803,10 +925,20 @@ fn grid_overlay(map: &CorrelationMap, model: &[Vec<f64>]) -> Option<Value> {
             })
             .collect::<Vec<_>>()
     });
-    Some(json!({
-        "profile": {"x": map.offsets(), "t": map.times(), "C": model},
-        "residual": {"x": map.offsets(), "t": map.times(), "values": residual, "err": err},
-    }))
+    Overlay {
+        tail: None,
+        profile: Some(GridCurve {
+            x: map.offsets().to_vec(),
+            t: map.times().to_vec(),
+            c: model,
+        }),
+        residual: Some(ResidualGrid {
+            x: map.offsets().to_vec(),
+            t: map.times().to_vec(),
+            values: residual,
+            err,
+        }),
+    }
 }
 
 fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed> {
@@ -816,27 +948,27 @@ fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed
         ..ProfileOptions::default()
     };
     let mut parameters = BTreeMap::new();
-    let mut quality = Map::new();
+    let mut quality = Quality::default();
     let mut warnings = Vec::new();
     let single = |model| fit_profile(map, model, &settings).map_err(bad);
     let (chosen, value) = match options.model {
         ProfileChoice::Gaussian => {
             let r = single(ProfileModel::Gaussian)?;
-            let v = to_value(&r)?;
-            (r, v)
+            (r.clone(), FitReport::Profile(Box::new(r)))
         }
         ProfileChoice::Stable => {
             let r = single(ProfileModel::Stable)?;
-            let v = to_value(&r)?;
-            (r, v)
+            (r.clone(), FitReport::Profile(Box::new(r)))
         }
         ProfileChoice::Compare => {
             let c = compare_profiles(map, &settings).map_err(bad)?;
-            quality.insert("preferred".into(), json!(c.preferred.name()));
-            quality.insert("delta_aic".into(), json!(c.delta_aic));
-            quality.insert("delta_bic".into(), json!(c.delta_bic));
-            let v = to_value(&c)?;
-            (c.preferred_report().clone(), v)
+            quality.preferred = Some(c.preferred.name().to_string());
+            quality.delta_aic = Some(c.delta_aic);
+            quality.delta_bic = Some(c.delta_bic);
+            (
+                c.preferred_report().clone(),
+                FitReport::ProfileComparison(Box::new(c)),
+            )
         }
     };
     let mut d = param(chosen.d, chosen.d_err);
@@ -856,8 +988,8 @@ fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed
     }
     parameters.insert("mu".into(), mu.clone());
     parameters.insert("z".into(), mu);
-    quality.insert("chi2_dof".into(), json!(chosen.chi2_dof));
-    quality.insert("model".into(), json!(chosen.model.name()));
+    quality.chi2_dof = Some(chosen.chi2_dof);
+    quality.model = Some(chosen.model.name().to_string());
     if chosen.mu_at_bound {
         warnings.push("μ ended on the edge of its allowed range".into());
     }
@@ -868,14 +1000,14 @@ fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed
             chosen.model.name()
         ));
     }
-    Ok((
+    Ok(Computed {
         parameters,
         quality,
-        termination_text(chosen.termination),
+        termination: chosen.termination.words().to_string(),
         warnings,
-        value,
-        Some(options.seed),
-    ))
+        report: value,
+        seed: Some(options.seed),
+    })
 }
 
 impl Service {
@@ -985,14 +1117,14 @@ impl Service {
                 let mut headline = None;
                 let mut computed = compute(method, &input, &options, &progress, &mut headline)?;
                 window_errors(
-                    &mut computed.0,
+                    &mut computed.parameters,
                     method,
                     &input,
                     &family,
                     &options,
                     &progress,
                 )?;
-                let overlay = overlay(method, &input, &computed.0, &computed.4);
+                let overlay = overlay(&input, &computed.parameters, &computed.report);
                 Ok((computed, overlay, headline))
             })
             .await;
@@ -1003,8 +1135,15 @@ impl Service {
         if cancel.load(Ordering::SeqCst) {
             return Err(ServiceError::Cancelled);
         }
-        let ((parameters, quality, termination, mut warnings, report, seed), overlay, headline) =
-            outcome?;
+        let (computed, overlay, headline) = outcome?;
+        let Computed {
+            parameters,
+            quality,
+            termination,
+            mut warnings,
+            report,
+            seed,
+        } = computed;
         if summary.format.starts_with("shots-") {
             warnings.push(SHOT_MAP_WARNING.to_string());
         }

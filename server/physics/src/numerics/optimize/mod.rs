@@ -104,6 +104,22 @@ pub enum Termination {
 }
 
 impl Termination {
+    /// Why the search stopped, in plain words for outputs.
+    #[must_use]
+    pub fn words(self) -> &'static str {
+        match self {
+            Self::GradientTolerance => "converged (the gradient vanished)",
+            Self::StepTolerance => "converged (the steps became negligible)",
+            Self::Chi2Tolerance => "converged (χ² stopped decreasing)",
+            Self::ExactFit => "exact fit (χ² = 0)",
+            Self::Converged => "converged",
+            Self::MinimumAtBoundary => "best value at the edge of the searched interval",
+            Self::MaxIterations => "iteration limit reached before convergence",
+            Self::SingularJacobian => "parameters not determined (singular Jacobian)",
+            Self::NoProgress => "no progress: no step lowered χ²",
+        }
+    }
+
     /// `true` for the reasons that mean "found a minimum".
     #[must_use]
     pub fn is_converged(self) -> bool {
