@@ -12,7 +12,7 @@
 //! exactly the inline scripts whose hashes [`Report::script_hashes`] lists.
 
 use serde::Serialize;
-use serde_json::{Value, json};
+use serde_json::Value;
 use sha2::{Digest, Sha256};
 
 use super::log::{LogEntry, method_label};
@@ -154,10 +154,10 @@ fn compact(value: &Value) -> Value {
     match value {
         Value::Number(n) if n.is_f64() => n.as_f64().map_or(Value::Null, |v| {
             if v == 0.0 || !v.is_finite() {
-                return json!(v);
+                return Value::from(v);
             }
             let scale = 10f64.powi(FIGURE_DIGITS - 1 - v.abs().log10().floor() as i32);
-            json!((v * scale).round() / scale)
+            Value::from((v * scale).round() / scale)
         }),
         Value::Array(items) => Value::Array(items.iter().map(compact).collect()),
         Value::Object(map) => {
@@ -168,8 +168,9 @@ fn compact(value: &Value) -> Value {
 }
 
 /// What the report draws for one pinned fit: the collapse at its z, its
-/// fitted C(0,t) law, and its model profiles at up to four times.
-fn fit_figure(entry: &LogEntry, fit: &Value) -> Value {
+/// fitted C(0,t) law, and its model profiles at up to four times. The fit is
+/// read as it was stored in the log.
+fn fit_figure(entry: &LogEntry, fit: &Value) -> FitFigure {
     let profile = fit["overlay"].get("profile").map(|p| {
         let t = p["t"].as_array().cloned().unwrap_or_default();
         let n = t.len();
@@ -178,21 +179,80 @@ fn fit_figure(entry: &LogEntry, fit: &Value) -> Value {
         } else {
             (0..4).map(|k| k * (n - 1) / 3).collect()
         };
-        json!({
-            "x": p["x"],
-            "t": picks.iter().map(|&i| t[i].clone()).collect::<Vec<_>>(),
-            "C": picks.iter().map(|&i| p["C"][i].clone()).collect::<Vec<_>>(),
-        })
+        ProfilePicks {
+            x: p["x"].clone(),
+            t: picks.iter().map(|&i| t[i].clone()).collect(),
+            c: picks.iter().map(|&i| p["C"][i].clone()).collect(),
+        }
     });
-    json!({
-        "entry": entry.id,
-        "dataset": entry.dataset,
-        "method": fit["method"],
-        "z": fit["parameters"]["z"]["value"],
-        "windows": fit["windows"],
-        "tail": fit["overlay"].get("tail"),
-        "profile": profile,
-    })
+    FitFigure {
+        entry: entry.id,
+        dataset: entry.dataset,
+        method: fit["method"].clone(),
+        z: fit["parameters"]["z"]["value"].clone(),
+        windows: fit["windows"].clone(),
+        tail: fit["overlay"].get("tail").cloned(),
+        profile,
+    }
+}
+
+/// The figures' data inlined into the report.
+#[derive(Debug, Serialize)]
+struct ReportData {
+    datasets: Vec<DatasetFigure>,
+    comparison: Vec<ComparisonRow>,
+    fits: Vec<FitFigure>,
+}
+
+/// One dataset's map, autocorrelation and sum rule.
+#[derive(Debug, Serialize)]
+struct DatasetFigure {
+    id: i64,
+    x: Vec<i32>,
+    t: Vec<f64>,
+    #[serde(rename = "C")]
+    c: Vec<Vec<Option<f64>>>,
+    time_unit: String,
+    auto: Option<Series>,
+    sum: SumSeries,
+}
+
+/// C(0,t) with its errors when known.
+#[derive(Debug, Serialize)]
+struct Series {
+    t: Vec<f64>,
+    #[serde(rename = "C")]
+    c: Vec<f64>,
+    err: Option<Vec<f64>>,
+}
+
+/// Σ_x C(x,t) with its errors when known.
+#[derive(Debug, Serialize)]
+struct SumSeries {
+    t: Vec<f64>,
+    sum: Vec<f64>,
+    err: Option<Vec<f64>>,
+}
+
+/// A pinned fit's figure data, taken from the stored entry.
+#[derive(Debug, Serialize)]
+struct FitFigure {
+    entry: i64,
+    dataset: Option<i64>,
+    method: Value,
+    z: Value,
+    windows: Value,
+    tail: Option<Value>,
+    profile: Option<ProfilePicks>,
+}
+
+/// A fitted profile at up to four of its times.
+#[derive(Debug, Serialize)]
+struct ProfilePicks {
+    x: Value,
+    t: Vec<Value>,
+    #[serde(rename = "C")]
+    c: Vec<Value>,
 }
 
 impl Service {
@@ -231,26 +291,24 @@ impl Service {
                 })
                 .collect();
             let sums = map.sum_rule();
-            let auto = map.autocorrelation().map(|a| {
-                json!({
-                    "t": a.iter().map(|p| p.0).collect::<Vec<_>>(),
-                    "C": a.iter().map(|p| p.1).collect::<Vec<_>>(),
-                    "err": a.iter().map(|p| p.2).collect::<Option<Vec<_>>>(),
-                })
+            let auto = map.autocorrelation().map(|a| Series {
+                t: a.iter().map(|p| p.0).collect(),
+                c: a.iter().map(|p| p.1).collect(),
+                err: a.iter().map(|p| p.2).collect(),
             });
-            figures.push(json!({
-                "id": summary.id,
-                "x": map.offsets(),
-                "t": map.times(),
-                "C": grid,
-                "time_unit": summary.meta.time_unit,
-                "auto": auto,
-                "sum": {
-                    "t": sums.iter().map(|p| p.t).collect::<Vec<_>>(),
-                    "sum": sums.iter().map(|p| p.sum).collect::<Vec<_>>(),
-                    "err": sums.iter().map(|p| p.err).collect::<Option<Vec<_>>>(),
+            figures.push(DatasetFigure {
+                id: summary.id,
+                x: map.offsets().to_vec(),
+                t: map.times().to_vec(),
+                c: grid,
+                time_unit: summary.meta.time_unit.clone(),
+                auto,
+                sum: SumSeries {
+                    t: sums.iter().map(|p| p.t).collect(),
+                    sum: sums.iter().map(|p| p.sum).collect(),
+                    err: sums.iter().map(|p| p.err).collect(),
                 },
-            }));
+            });
             let m = &summary.meta;
             sections.push_str(&format!(
                 "<section><h2>{name}</h2><table class=kv>\
@@ -347,9 +405,9 @@ impl Service {
             let figure = fit_figure(e, fit);
             let mut divs = String::new();
             for (kind, present) in [
-                ("collapse", figure["z"].is_number()),
-                ("tail", figure["tail"].is_object()),
-                ("profile", figure["profile"].is_object()),
+                ("collapse", figure.z.is_number()),
+                ("tail", figure.tail.as_ref().is_some_and(Value::is_object)),
+                ("profile", figure.profile.is_some()),
             ] {
                 if present {
                     divs.push_str(&format!(
@@ -374,7 +432,13 @@ impl Service {
         if fit_sections.is_empty() {
             fit_sections.push_str("<p>No pinned fit with curves to draw.</p>");
         }
-        let data = compact(&json!({"datasets": figures, "comparison": comparison, "fits": fits}));
+        let data = serde_json::to_value(ReportData {
+            datasets: figures,
+            comparison,
+            fits,
+        })
+        .map_err(|e| super::ServiceError::Internal(e.to_string()))?;
+        let data = compact(&data);
         let scripts = [plotting_library, DRAW_SCRIPT];
         let script_hashes = scripts.iter().map(|s| script_hash(s)).collect();
         // Fill the marks in one pass, so text inserted for one mark is
@@ -475,7 +539,7 @@ mod tests {
 
     #[test]
     fn inline_json_cannot_close_the_script_element() {
-        let text = inline_json(&json!({"name": "</script><script>alert(1)</script>"}));
+        let text = inline_json(&serde_json::json!({"name": "</script><script>alert(1)</script>"}));
         assert!(!text.contains("</script>"));
     }
 }
