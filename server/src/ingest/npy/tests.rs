@@ -8,6 +8,7 @@ use crate::ingest::testing::{cell, same};
 use crate::ingest::{Format, Problem, parse, sniff};
 use ndarray::{Array1, Array2, ShapeBuilder, array};
 use ndarray_npy::{NpzWriter, WriteNpyExt};
+use std::io::Cursor;
 
 type Writer = NpzWriter<Cursor<Vec<u8>>>;
 
