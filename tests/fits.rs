@@ -149,6 +149,15 @@ async fn bad_fit_requests_name_their_field() {
         ),
         (json!({"method": "magic"}), "method"),
         (json!({"method": "collapse", "options": {"zz": 1}}), "zz"),
+        // An option the method does not read is refused, not ignored.
+        (
+            json!({"method": "collapse", "options": {"q": 0.5}}),
+            "option `q` does not apply to the scaling collapse",
+        ),
+        (
+            json!({"method": "tail", "options": {"bootstrap": 10}}),
+            "option `bootstrap` does not apply to the autocorrelation tail fit",
+        ),
     ] {
         let (status, err) = send_json(&app.router, Method::POST, &uri, body.to_string()).await;
         assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{body}");

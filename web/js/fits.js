@@ -84,16 +84,30 @@ const OPTION_FIELDS = /** @type {const} */ ([
   ["q", "fit-opt-q", false],
 ]);
 
+/** The panel's settings each method reads (the server refuses the others by name). */
+const METHOD_OPTIONS = /** @type {Record<string, readonly string[]>} */ ({
+  tail: [],
+  width: ["q"],
+  collapse: ["bootstrap", "seed"],
+  profile: ["bootstrap", "seed"],
+  lattice_walk: [],
+  short_time: [],
+  analysis: ["bootstrap", "seed"],
+});
+
 /**
- * The settings typed in the panel's options; empty fields are left to the
- * server's defaults.
+ * The settings typed in the panel's options that `method` reads; empty
+ * fields are left to the server's defaults.
+ * @param {string} method
  * @returns {Record<string, number>}
  * @throws {Error} naming the field that does not hold a number
  */
-function readOptions() {
+function readOptions(method) {
   /** @type {Record<string, number>} */
   const options = {};
+  const taken = METHOD_OPTIONS[method] ?? [];
   for (const [key, id, whole] of OPTION_FIELDS) {
+    if (!taken.includes(key)) continue;
     const input = byId(id, HTMLInputElement);
     input.removeAttribute("aria-invalid");
     const text = input.value.trim();
@@ -128,7 +142,7 @@ async function run(method) {
         state.job = job;
       },
       onProgress: (fraction) => setProgress(fraction),
-    }, readOptions());
+    }, readOptions(method));
     const seconds = (performance.now() - started) / 1000;
     setStatus(`Done in ${seconds < 1 ? seconds.toFixed(2) : seconds.toFixed(1)} s; the result is the first card below.`, "ok");
   } catch (e) {

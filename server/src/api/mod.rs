@@ -636,6 +636,16 @@ async fn run_fit(
 ) -> ApiResult<Json<Value>> {
     let access = service.access(&token).await?;
     let request: FitRequest = parse_json(&body, "fit request")?;
+    // Options the method does not read are refused by name.
+    let given: Vec<String> = serde_json::from_slice::<Value>(&body)
+        .ok()
+        .and_then(|v| {
+            v.get("options")?
+                .as_object()
+                .map(|o| o.keys().cloned().collect())
+        })
+        .unwrap_or_default();
+    request.method.check_given(&given)?;
     // Identical requests share one computation and its cached result.
     Ok(Json(json!(
         *service.fit_shared(&access, id, request).await?

@@ -19,6 +19,68 @@ pub enum FitMethod {
     Analysis,
 }
 
+impl FitMethod {
+    /// The options this estimator reads (every method also takes `sites`
+    /// and `source`, which place the chain for the window rule).
+    #[must_use]
+    pub fn options(self) -> &'static [&'static str] {
+        match self {
+            Self::Tail => &["sites", "source"],
+            Self::Width => &["q", "sites", "source"],
+            Self::Collapse => &[
+                "z_min",
+                "z_max",
+                "bootstrap",
+                "seed",
+                "d_convention",
+                "sites",
+                "source",
+            ],
+            Self::Profile => &[
+                "model",
+                "bootstrap",
+                "seed",
+                "d_convention",
+                "sites",
+                "source",
+            ],
+            Self::LatticeWalk => &["sites", "source"],
+            Self::ShortTime => &["order", "sites", "source"],
+            Self::Analysis => &["bootstrap", "seed", "d_convention", "sites", "source"],
+        }
+    }
+
+    /// Refuses, by name, options given to an estimator that does not read
+    /// them (a setting silently ignored reads as a setting applied).
+    ///
+    /// # Errors
+    /// BadRequest naming the option and what the method takes.
+    pub fn check_given(self, given: &[String]) -> ServiceResult<()> {
+        match given.iter().find(|g| !self.options().contains(&g.as_str())) {
+            Some(unused) => Err(ServiceError::BadRequest(format!(
+                "option `{unused}` does not apply to {}; it takes {}",
+                self.words(),
+                self.options().join(", ")
+            ))),
+            None => Ok(()),
+        }
+    }
+
+    /// The estimator in words.
+    #[must_use]
+    pub fn words(self) -> &'static str {
+        match self {
+            Self::Tail => "the autocorrelation tail fit",
+            Self::Width => "the width fit",
+            Self::Collapse => "the scaling collapse",
+            Self::Profile => "the profile fit",
+            Self::LatticeWalk => "the lattice-walk fit",
+            Self::ShortTime => "the short-time check",
+            Self::Analysis => "the analysis",
+        }
+    }
+}
+
 /// Which scaling function the profile fit uses.
 #[derive(Debug, Clone, Copy, Default, PartialEq, Eq, Deserialize)]
 #[serde(rename_all = "snake_case")]
