@@ -12,3 +12,4 @@ mod lab;
 mod load;
 mod parsers_prop;
 mod support;
+mod wire;

@@ -113,6 +113,8 @@ export const FIT_METHODS = /** @type {const} */ (["tail", "width", "collapse", "
  * @property {number | null} err one-sigma error from the fit's covariance (or the method's own rule)
  * @property {number | null} [err_bootstrap] one-sigma error from the bootstrap, when it ran
  * @property {number | null} [err_sys] window error: spread over neighbouring windows
+ * @property {[number, number]} [interval] bootstrap 16th–84th percentiles
+ * @property {number} [bias] bootstrap mean − estimate
  * @property {boolean} [fixed] held fixed by the model
  */
 
@@ -153,7 +155,10 @@ export const FIT_METHODS = /** @type {const} */ (["tail", "width", "collapse", "
  * @typedef {object} FitResult
  * @property {string} method
  * @property {string | number} dataset
+ * @property {string} dataset_name
  * @property {string} dataset_hash
+ * @property {string} d_convention how D is defined in this result
+ * @property {string} conventions the conventions every output states
  * @property {FitWindows} windows
  * @property {number | null} seed
  * @property {Record<string, FitParameter>} parameters
