@@ -52,7 +52,7 @@ function draw() {
   const live = rows.filter((r) => !r.retracted && r.alpha !== null);
   /**
    * @param {"z" | "D"} what
-   * @returns {import("./plot.js").ComparisonPoint[]}
+   * @returns {import("./plotpanels.js").ComparisonPoint[]}
    */
   const points = (what) =>
     live
