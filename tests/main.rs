@@ -2,6 +2,7 @@
 
 mod api;
 mod architecture;
+mod archive;
 mod bad_input;
 mod browser;
 mod cli;
