@@ -17,285 +17,35 @@
 // Prints one line per check and a closing line `browser: N passed, M failed`;
 // exits 0 only when every check passed.
 
-import { chromium } from "playwright-core";
 import fs from "node:fs";
 import os from "node:os";
 import path from "node:path";
 
-const USAGE =
-  "usage: node tests/browser/e2e.mjs --url EDIT_URL --view-url VIEW_URL --upload FILE --screenshot OUT.png [--timeout MS]";
-const CHROMIUM = "/usr/bin/chromium";
-const VIEWPORT = { width: 1280, height: 800 };
-/** Grid of the synthetic map the collapse is timed on: the size named in the design's speed target. */
-const SLICES = 60;
-const SITES = 101;
-
-/**
- * @param {string[]} argv
- * @returns {{url: string, viewUrl: string, upload: string, screenshot: string, timeout: number}}
- */
-function parseArgs(argv) {
-  /** @type {Record<string, string>} */
-  const opts = {};
-  for (let i = 0; i < argv.length; i += 1) {
-    const key = argv[i];
-    if (!key.startsWith("--")) throw new Error(`unexpected argument "${key}"\n${USAGE}`);
-    const value = argv[i + 1];
-    if (value === undefined || value.startsWith("--")) throw new Error(`${key} needs a value\n${USAGE}`);
-    opts[key.slice(2)] = value;
-    i += 1;
-  }
-  for (const needed of ["url", "view-url", "upload", "screenshot"]) {
-    if (!opts[needed]) throw new Error(`missing --${needed}\n${USAGE}`);
-  }
-  for (const known of Object.keys(opts)) {
-    if (!["url", "view-url", "upload", "screenshot", "timeout"].includes(known)) {
-      throw new Error(`unknown option --${known}\n${USAGE}`);
-    }
-  }
-  if (!fs.existsSync(opts.upload)) throw new Error(`--upload: file ${opts.upload} does not exist`);
-  const timeout = opts.timeout ? Number(opts.timeout) : 30000;
-  if (!Number.isFinite(timeout) || timeout <= 0) throw new Error(`--timeout: "${opts.timeout}" is not a positive number of milliseconds`);
-  return { url: opts.url, viewUrl: opts["view-url"], upload: opts.upload, screenshot: opts.screenshot, timeout };
-}
-
-let passed = 0;
-let failed = 0;
-/** @type {string[]} */
-const pending = [];
-/** @type {string[]} */
-const measurements = [];
-
-/**
- * Runs one named check; a thrown error fails it with its message.
- * @param {string} name
- * @param {() => Promise<void>} body
- * @returns {Promise<boolean>}
- */
-async function check(name, body) {
-  try {
-    await body();
-    passed += 1;
-    console.log(`ok      ${name}`);
-    return true;
-  } catch (e) {
-    failed += 1;
-    const message = e instanceof Error ? e.message.split("\n").slice(0, 8).join("\n        ") : String(e);
-    console.log(`FAILED  ${name}\n        ${message}`);
-    return false;
-  }
-}
-
-/**
- * Records a check that cannot run because the server does not offer the
- * route yet.
- * @param {string} name
- * @param {string} why
- */
-function skipPending(name, why) {
-  pending.push(`${name} (${why})`);
-  console.log(`pending ${name}: ${why}`);
-}
-
-/**
- * @param {boolean} condition
- * @param {string} message
- */
-function assert(condition, message) {
-  if (!condition) throw new Error(message);
-}
-
-/**
- * Routes the server does not offer yet (path patterns): the browser's own
- * "failed to load" messages for them are expected while they are pending.
- * @type {RegExp[]}
- */
-const missingRoutes = [];
-
-/**
- * Failed loads a check causes on purpose (a cancelled fit answers 409).
- * @type {Array<{text: RegExp, url: RegExp}>}
- */
-const expectedFailures = [];
-
-/**
- * Collects script errors, failed requests and CSP violations a page reports.
- * A failed load of a route listed in `missingRoutes` is left out when the
- * errors are read (see `errorsOf`).
- * @param {import("playwright-core").Page} page
- * @param {Array<{text: string, url: string}>} sink
- */
-function watchErrors(page, sink) {
-  page.on("pageerror", (err) => sink.push({ text: `uncaught: ${err.message}`, url: "" }));
-  page.on("console", (msg) => {
-    if (msg.type() === "error") sink.push({ text: `console: ${msg.text()}`, url: msg.location().url ?? "" });
-  });
-  page.on("requestfailed", (req) => {
-    // An event stream cut when the page closes, a download, and a theory
-    // request the page itself stopped are not failures of the page.
-    const url = req.url();
-    if (url.endsWith("/events") || req.failure()?.errorText === "net::ERR_ABORTED") return;
-    sink.push({ text: `request failed: ${req.method()} ${url} (${req.failure()?.errorText ?? "?"})`, url });
-  });
-}
-
-/**
- * The errors a page reported, less the expected failures of pending routes.
- * @param {Array<{text: string, url: string}>} sink
- * @returns {string[]}
- */
-function errorsOf(sink) {
-  return sink
-    .filter((e) => !(e.text.startsWith("console: Failed to load resource") && missingRoutes.some((r) => r.test(e.url))))
-    .filter((e) => !expectedFailures.some((f) => f.text.test(e.text) && f.url.test(e.url)))
-    .map((e) => e.text);
-}
-
-/**
- * Waits until Plotly has drawn a heatmap into #view-map: the container carries
- * `js-plotly-plot` and holds the heatmap layer's raster image (SVG `image`)
- * or a canvas.
- * @param {import("playwright-core").Page} page
- * @param {number} timeout
- */
-async function waitForHeatmap(page, timeout) {
-  await page.waitForFunction(
-    () => {
-      const root = document.querySelector("#view-map.js-plotly-plot, #view-map .js-plotly-plot");
-      if (!root) return false;
-      return Boolean(root.querySelector(".heatmaplayer image, .hm image, canvas"));
-    },
-    undefined,
-    { timeout },
-  );
-}
-
-/**
- * The synthetic map the collapse is checked and timed on: the diffusive
- * profile C(x,t) = exp(−x²/(4Dt)) / √(4πDt) with D = 0.5 (the lattice
- * continuum limit of a nearest-neighbour walk; common practice, no source),
- * SITES sites around the source and SLICES geometric times from 0.5 to 50,
- * with seeded noise of about 5e-4 and that error in the err column. Marked
- * synthetic in its name and metadata.
- * @returns {string} long CSV `x,t,C,err`
- */
-function syntheticDiffusionCsv() {
-  const D = 0.5;
-  const half = (SITES - 1) / 2;
-  // Park–Miller minimal standard generator, seeded, so the file is the same every run.
-  let seed = 20240601;
-  const uniform = () => {
-    seed = (seed * 16807) % 2147483647;
-    return seed / 2147483647;
-  };
-  const lines = ["x,t,C,err"];
-  for (let k = 0; k < SLICES; k += 1) {
-    const t = 0.5 * Math.pow(100, k / (SLICES - 1));
-    for (let x = -half; x <= half; x += 1) {
-      const c = Math.exp((-x * x) / (4 * D * t)) / Math.sqrt(4 * Math.PI * D * t);
-      const noise = 5e-4 * (uniform() + uniform() + uniform() - 1.5) * 2;
-      lines.push(`${x},${t.toPrecision(8)},${(c + noise).toPrecision(8)},5e-4`);
-    }
-  }
-  return lines.join("\n") + "\n";
-}
-
-/**
- * Calls the session's API from inside a page (same origin, no CORS).
- * @param {import("playwright-core").Page} page
- * @param {string} method
- * @param {string} apiPath path below /api/s/{token}
- * @param {unknown} [body] JSON body, or a string sent as it is
- * @returns {Promise<{status: number, json: any, text: string}>}
- */
-async function callApi(page, method, apiPath, body) {
-  return page.evaluate(
-    async ({ method, apiPath, body }) => {
-      const token = decodeURIComponent(location.pathname.split("/").filter(Boolean).pop() ?? "");
-      const init = /** @type {RequestInit} */ ({ method, headers: {} });
-      if (body !== undefined) {
-        init.body = typeof body === "string" ? body : JSON.stringify(body);
-        init.headers = { "Content-Type": typeof body === "string" ? "application/octet-stream" : "application/json" };
-      }
-      const response = await fetch(`/api/s/${token}${apiPath}`, init);
-      const text = await response.text();
-      let json = null;
-      try {
-        json = JSON.parse(text);
-      } catch {
-        json = null;
-      }
-      return { status: response.status, json, text: text.slice(0, 2000) };
-    },
-    { method, apiPath, body },
-  );
-}
-
-/**
- * Whether the server offers a route: an unknown route answers 404 with
- * `{"error":"not found"}`; a known one answers anything else to this probe.
- * @param {import("playwright-core").Page} page
- * @param {string} method
- * @param {string} apiPath
- * @param {unknown} [body]
- * @returns {Promise<boolean>}
- */
-async function offers(page, method, apiPath, body) {
-  const answer = await callApi(page, method, apiPath, body);
-  return !(answer.status === 404 && answer.json && answer.json.error === "not found");
-}
-
-/**
- * A screenshot next to the main one: OUT.png → OUT-name.png.
- * @param {import("playwright-core").Page} page
- * @param {string} main
- * @param {string} name
- * @returns {Promise<string>}
- */
-async function sideShot(page, main, name) {
-  const file = main.replace(/(\.png)?$/i, `-${name}.png`);
-  // From the top of the page, as a person arriving sees it.
-  await page.evaluate(() => window.scrollTo(0, 0));
-  await page.screenshot({ path: file, fullPage: false });
-  return file;
-}
-
-/**
- * @param {number[]} values
- * @param {number} q quantile in [0, 1], nearest rank
- * @returns {number}
- */
-function quantile(values, q) {
-  const sorted = [...values].sort((a, b) => a - b);
-  const rank = Math.min(sorted.length - 1, Math.max(0, Math.ceil(q * sorted.length) - 1));
-  return sorted[rank] ?? Number.NaN;
-}
-
-/**
- * @param {string} profile
- * @param {number} timeout
- * @returns {Promise<import("playwright-core").BrowserContext>}
- */
-async function openProfile(profile, timeout) {
-  const context = await chromium.launchPersistentContext(profile, {
-    executablePath: CHROMIUM,
-    headless: true,
-    viewport: VIEWPORT,
-    deviceScaleFactor: 1,
-    acceptDownloads: true,
-    args: [
-      "--no-sandbox",
-      "--disable-gpu",
-      "--disable-background-networking",
-      "--disable-component-update",
-      "--no-first-run",
-      "--disable-sync",
-      "--disable-quic",
-    ],
-  });
-  context.setDefaultTimeout(timeout);
-  return context;
-}
+import { startPageChecks } from "./startpage.mjs";
+import {
+  CHROMIUM,
+  SITES,
+  SLICES,
+  assert,
+  callApi,
+  check,
+  errorsOf,
+  expectedFailures,
+  measurements,
+  missingRoutes,
+  offers,
+  openProfile,
+  parseArgs,
+  pending,
+  quantile,
+  sideShot,
+  skipPending,
+  syntheticDiffusionCsv,
+  tally,
+  waitForHeatmap,
+  watchErrors,
+  VIEWPORT,
+} from "./harness.mjs";
 
 async function main() {
   const args = parseArgs(process.argv.slice(2));
@@ -1233,77 +983,14 @@ async function main() {
   }
 }
 
-/**
- * Sessions from the start page (issue 11 §6), and the first load of the
- * dashboard in a fresh profile (nothing cached), timed until the first
- * figure is drawn.
- * @param {string} origin
- * @param {string} profile
- * @param {string} dashboard
- * @param {number} timeout
- */
-async function startPageChecks(origin, profile, dashboard, timeout) {
-  const context = await openProfile(profile, timeout);
-  try {
-    const page = context.pages()[0] ?? (await context.newPage());
-    await check("first load of the dashboard in a fresh browser profile (measured)", async () => {
-      const started = Date.now();
-      await page.goto(dashboard, { waitUntil: "domcontentloaded" });
-      await page.waitForFunction(() => document.querySelector(".js-plotly-plot .main-svg") !== null, undefined, { timeout });
-      const drawn = Date.now() - started;
-      const scripts = await page.evaluate(() =>
-        performance.getEntriesByType("resource").filter((r) => r.name.includes("/vendor/")).map((r) => /** @type {PerformanceResourceTiming} */ (r).encodedBodySize),
-      );
-      measurements.push(`first load to the first drawn figure: ${drawn} ms (plotting bundle ${scripts.join(", ")} bytes)`);
-    });
-    await check("the dashboard offers the whole session as an archive, and the start page imports it as a new session", async () => {
-      const href = await page.locator("#archive-link").getAttribute("href");
-      assert(href !== null && href.endsWith("/archive"), `the archive link points to ${href}`);
-      const response = await fetch(new URL(/** @type {string} */ (href), origin));
-      assert(response.ok, `the archive answered ${response.status}`);
-      const bytes = Buffer.from(await response.arrayBuffer());
-      assert(bytes.subarray(0, 2).toString("latin1") === "PK", "the archive is not a zip file");
-      const file = path.join(path.dirname(profile), "session-archive.zip");
-      fs.writeFileSync(file, bytes);
-      await page.goto(`${origin}/`, { waitUntil: "domcontentloaded" });
-      const before = await page.locator("#sessions li").count();
-      await page.setInputFiles("#archive-file", file);
-      await page.click('#import-archive button[type="submit"]');
-      await page.waitForFunction(() => (document.querySelector("#start-status")?.textContent ?? "").startsWith("Imported") || document.querySelector("#start-status")?.classList.contains("error"), undefined, { timeout });
-      const status = ((await page.locator("#start-status").textContent()) ?? "").trim();
-      assert(status.startsWith("Imported"), `the start page says "${status}"`);
-      await page.waitForFunction((n) => document.querySelectorAll("#sessions li").length === n + 1, before, { timeout });
-    });
-    await check("a session is created and renamed from the start page", async () => {
-      await page.goto(`${origin}/`, { waitUntil: "domcontentloaded" });
-      await page.fill("#new-name", "Start-page session");
-      await page.click('#new-session button[type="submit"]');
-      const item = page.locator("#sessions li", { hasText: "Start-page session" });
-      await item.waitFor({ timeout });
-      await item.locator('[data-testid="rename"]').click();
-      await item.locator('[data-testid="rename-input"]').fill("Renamed on the start page");
-      await item.locator('button[type="submit"]').click();
-      await page.locator('#sessions [data-testid="session-name"]', { hasText: "Renamed on the start page" }).waitFor({ timeout });
-      // The list survives a reload (links kept in this browser) and opens the session.
-      await page.reload({ waitUntil: "domcontentloaded" });
-      const again = page.locator("#sessions li", { hasText: "Renamed on the start page" });
-      await again.waitFor({ timeout });
-      await again.locator("a", { hasText: "Open (edit)" }).click();
-      await page.waitForFunction(() => document.querySelector("#session-name")?.textContent === "Renamed on the start page", undefined, { timeout });
-    });
-  } finally {
-    await context.close();
-  }
-}
-
 main()
   .catch((e) => {
-    failed += 1;
+    tally.failed += 1;
     console.log(`FAILED  could not run the browser checks: ${e instanceof Error ? e.message : String(e)}`);
   })
   .finally(() => {
     for (const line of measurements) console.log(`measured: ${line}`);
     if (pending.length > 0) console.log(`pending (server routes missing): ${pending.length}`);
-    console.log(`browser: ${passed} passed, ${failed} failed`);
-    process.exitCode = failed === 0 ? 0 : 1;
+    console.log(`browser: ${tally.passed} passed, ${tally.failed} failed`);
+    process.exitCode = tally.failed === 0 ? 0 : 1;
   });
