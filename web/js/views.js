@@ -430,7 +430,15 @@ export function showDataset(detail) {
     syncTimeAxisRadios();
   }
   fillTimeOptions();
-  for (const view of GRID_VIEWS) DRAW[view]();
+  // The views on screen first; the others after the next frame has been
+  // painted, so the first figure does not wait for the hidden ones.
+  const hidden = GRID_VIEWS.filter((view) => !isVisible(view));
+  for (const view of GRID_VIEWS) if (isVisible(view)) DRAW[view]();
+  window.requestAnimationFrame(() =>
+    window.setTimeout(() => {
+      if (state.detail === detail) for (const view of hidden) DRAW[view]();
+    }, 0),
+  );
   emit("dataset", detail);
 }
 
