@@ -222,7 +222,7 @@ async fn a_fit_with_a_job_id_reports_progress_as_events() {
 }
 
 #[tokio::test]
-async fn theory_overlays_use_the_dataset_metadata_and_give_residuals() {
+async fn theory_overlays_use_the_dataset_metadata_and_give_residuals_self_consistent() {
     let app = app().await;
     let (edit, _) = new_session(&app.router).await;
     // A lattice-walk map written by the same engine, so the residual of the
@@ -293,7 +293,8 @@ async fn theory_overlays_use_the_dataset_metadata_and_give_residuals() {
 }
 
 #[tokio::test]
-async fn long_chain_overlays_say_their_method_and_time_first_and_take_a_coupling_matrix() {
+async fn long_chain_overlays_say_their_method_and_time_first_and_take_a_coupling_matrix_self_consistent()
+ {
     let app = app().await;
     let (edit, _) = new_session(&app.router).await;
     // A 41-site lattice-walk map as the dataset (the overlay's own accuracy

@@ -122,7 +122,8 @@ fn noisy_averaged_walk_map(
 }
 
 #[test]
-fn averaged_model_matches_the_walk_averaged_by_hand_and_derivatives_match_differences() {
+fn averaged_model_matches_the_walk_averaged_by_hand_and_derivatives_match_differences_self_consistent()
+ {
     // Self-consistent only in the averaging, which the helper above does
     // independently of the fit's terms; the walk itself comes from
     // `LatticeWalk::propagate`.
