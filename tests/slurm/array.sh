@@ -85,7 +85,18 @@ mkdir -p "$work/bin"
 ln -s "$binary" "$work/bin/spreadscope"
 cd "$work"
 export PATH="$work/bin:$PATH" ALPHAS="0.8 1.2" PARTS=2 SITES=24 TRAJECTORIES=400
-sbatch --wait --array=0-3 sweep.sbatch >/dev/null
+# The four tasks take seconds; a cluster that has not run them in five
+# minutes cannot run them here (too few CPUs for the template, a stuck node).
+status=0
+timeout 300 sbatch --wait --array=0-3 sweep.sbatch >/dev/null || status=$?
+if [ "$status" -eq 124 ]; then
+  scancel --name=dtwa-sweep >/dev/null 2>&1 || true
+  cannot "the job array did not finish within five minutes"
+elif [ "$status" -ne 0 ]; then
+  echo "slurm check: a task of the job array failed:" >&2
+  cat dtwa-*.log >&2 || true
+  exit 1
+fi
 for alpha in 0.8 1.2; do
   spreadscope merge dtwa-alpha$alpha-part*.json --out merged-$alpha.csv
   spreadscope simulate spin-chain --sites 24 --alpha "$alpha" --method dtwa \
