@@ -7,6 +7,7 @@
 //!   cargo bench -p spreadscope-physics --bench spin_chain
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 16 4   # sites, samples
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 22 2 1  # ... and t_max
+//!   cargo bench -p spreadscope-physics --bench spin_chain -- 20 2 10 1.2 20  # ... α, times
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- exact 12 14
 //! Peak resident memory, measured from outside:
 //!   /usr/bin/time -v target/release/deps/spin_chain-* --bench 20 2
@@ -23,10 +24,12 @@ use std::time::Instant;
 use spreadscope_physics::model::couplings::Couplings;
 use spreadscope_physics::model::spin_chain::{SpinChain, TypicalityOptions};
 
-fn run(sites: usize, samples: usize, t_max: f64) {
-    let couplings = Couplings::power_law(sites, 1.0, 1.0).expect("valid couplings");
+fn run(sites: usize, samples: usize, t_max: f64, alpha: f64, n_times: usize) {
+    let couplings = Couplings::power_law(sites, 1.0, alpha).expect("valid couplings");
     let chain = SpinChain::new(&couplings, 0.0).expect("valid chain");
-    let times: Vec<f64> = (0..50).map(|k| t_max * (k + 1) as f64 / 50.0).collect();
+    let times: Vec<f64> = (0..n_times)
+        .map(|k| t_max * (k + 1) as f64 / n_times as f64)
+        .collect();
     let source = sites / 2;
     let options = TypicalityOptions::new(samples, 2024);
     let never = AtomicBool::new(false);
@@ -39,7 +42,7 @@ fn run(sites: usize, samples: usize, t_max: f64) {
     let sum: f64 = result.values.row(last).sum();
     let max_err = result.errors.iter().copied().fold(0.0f64, f64::max);
     println!(
-        "N = {sites:2}, alpha = 1, Delta = 0, {samples} samples, 50 times to t = {t_max}: \
+        "N = {sites:2}, alpha = {alpha}, Delta = 0, {samples} samples, {n_times} times to t = {t_max}: \
          {seconds:8.2} s wall, {} threads",
         rayon::current_num_threads()
     );
@@ -86,12 +89,20 @@ fn main() {
     let args: Vec<f64> = raw.iter().filter_map(|a| a.parse().ok()).collect();
     let count = |x: f64| x as usize;
     match args.as_slice() {
-        [sites, samples, t_max, ..] => run(count(*sites), count(*samples), *t_max),
-        [sites, samples] => run(count(*sites), count(*samples), 10.0),
-        [sites] => run(count(*sites), 2, 10.0),
+        [sites, samples, t_max, alpha, n_times, ..] => run(
+            count(*sites),
+            count(*samples),
+            *t_max,
+            *alpha,
+            count(*n_times),
+        ),
+        [sites, samples, t_max, ..] => run(count(*sites), count(*samples), *t_max, 1.0, 50),
+        [sites, samples] => run(count(*sites), count(*samples), 10.0, 1.0, 50),
+        [sites] => run(count(*sites), 2, 10.0, 1.0, 50),
         _ => {
-            run(16, 4, 10.0);
-            run(20, 2, 10.0);
+            run(16, 4, 10.0, 1.0, 50);
+            run(20, 2, 10.0, 1.0, 50);
+            run(20, 2, 10.0, 1.2, 20);
         }
     }
 }

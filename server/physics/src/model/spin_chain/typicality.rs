@@ -78,15 +78,25 @@ const MEASURE_ROWS: usize = 512;
 /// scheduling cost is negligible, small enough to balance two cores).
 const ROWS_PER_TASK: usize = 4096;
 
-/// A packed sparse entry keeps the column in its low 24 bits and the index of
-/// its flip-flop term in the high 8 bits (see `MAX_TYPICAL_SITES`).
-const COLUMN_BITS: u32 = 24;
-const COLUMN_MASK: u32 = (1 << COLUMN_BITS) - 1;
+/// Bytes the Krylov vectors of one sample may take before the plan shortens
+/// the Krylov space (down to [`MIN_KRYLOV_DIM`]): 192 MiB keeps a 20-site run
+/// near 200 MB, while 24 sites still get the smallest useful space.
+const KRYLOV_BUDGET_BYTES: u64 = 192 << 20;
+
+/// Sectors smaller than this propagate several vectors at once (one per
+/// thread); larger ones propagate one vector at a time, parallel over
+/// amplitudes, so that only one set of Krylov vectors is in memory.
+const SMALL_SECTOR: usize = 1 << 14;
+
+/// Largest factor by which a small sector gets more vectors than the
+/// largest one (see [`vectors_in_sector`]).
+const MAX_VECTOR_FACTOR: usize = 16;
 
 /// Options of a typicality run.
 #[derive(Debug, Clone, PartialEq)]
 pub struct TypicalityOptions {
-    /// Number of independent random vectors (≥ 2, to state an error).
+    /// Number of independent random vectors in the largest sector (≥ 2, to
+    /// state an error); smaller sectors get more (see [`vectors_in_sector`]).
     pub samples: usize,
     /// Seed of the per-sample ChaCha8 streams.
     pub seed: u64,
@@ -112,12 +122,13 @@ impl TypicalityOptions {
 /// How a typicality run uses memory, decided before it starts.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct MemoryPlan {
-    /// Estimated peak bytes (sparse Hamiltonian of the largest sector, Krylov
-    /// vectors of the samples in flight, per-sample results).
+    /// Estimated peak bytes (Krylov vectors of the largest sector, its basis
+    /// and diagonal, index tables, per-vector results).
     pub bytes: u64,
     /// Largest Krylov dimension used.
     pub krylov_dim: usize,
-    /// Samples propagated at the same time.
+    /// Vectors propagated at the same time in the largest sector (1: the
+    /// threads share the amplitudes of one vector).
     pub concurrent_samples: usize,
 }
 
@@ -163,65 +174,75 @@ struct Amp {
     im: f64,
 }
 
-/// The Hamiltonian of one sector as a packed sparse matrix plus diagonal.
+/// The Hamiltonian of one sector, applied without being stored.
+///
+/// A row needs the index of every basis word one flip-flop away. The
+/// combinatorial rank (see [`Sector`]) is split at bit `low_bits`: the low
+/// bits' share depends on the low half alone, the high bits' share on the
+/// high half and on how many low bits are set, so two small tables give any
+/// rank in two look-ups (the two-table indexing of H. Q. Lin, Phys. Rev. B
+/// 42, 6561 (1990), from memory). Only the diagonal (d values) is stored:
+/// a 20-site sector needs 1.5 MB instead of 74 MB of packed matrix entries.
 #[derive(Debug)]
-struct SectorOperator {
+struct SectorOperator<'a> {
+    states: &'a [u32],
     diagonal: Vec<f64>,
-    row_start: Vec<usize>,
-    entries: Vec<u32>,
-    amplitudes: Vec<f64>,
+    low_bits: u32,
+    high_bits: u32,
+    /// Rank share of the low bits, indexed by the low word.
+    low_rank: Vec<u32>,
+    /// Rank share of the high bits, indexed by
+    /// (number of low bits set) · 2^high_bits + high word.
+    high_rank: Vec<u32>,
+    /// For every site i, the sites j with J_ij ≠ 0 and J_ij.
+    partners: Vec<Vec<(u32, f64)>>,
 }
 
-impl SectorOperator {
-    fn build(chain: &SpinChain, sector: &Sector) -> Self {
-        let flips = chain.flip_terms();
-        assert!(flips.len() <= 1 << (32 - COLUMN_BITS) && sector.dim() <= 1 << COLUMN_BITS);
-        let flippable = |state: u32, mask: u32| (state & mask).count_ones() == 1;
-        let counts: Vec<usize> = sector
-            .states
-            .par_iter()
-            .map(|&s| flips.iter().filter(|f| flippable(s, f.mask)).count())
+impl<'a> SectorOperator<'a> {
+    fn build(chain: &SpinChain, sector: &'a Sector) -> Self {
+        let sites = sector.sites as u32;
+        let low_bits = sites / 2;
+        let high_bits = sites - low_bits;
+        let low_rank = (0u32..1 << low_bits)
+            .map(|w| rank_share(w, 0, 0) as u32)
             .collect();
-        let mut row_start = Vec::with_capacity(counts.len() + 1);
-        row_start.push(0);
-        for c in &counts {
-            row_start.push(row_start.last().copied().unwrap_or(0) + c);
-        }
-        drop(counts);
-        let d = sector.dim();
-        let mut entries = vec![0u32; row_start[d]];
-        let mut blocks = Vec::new();
-        let mut rest = entries.as_mut_slice();
-        for first in (0..d).step_by(ROWS_PER_TASK) {
-            let last = (first + ROWS_PER_TASK).min(d);
-            let (head, tail) =
-                std::mem::take(&mut rest).split_at_mut(row_start[last] - row_start[first]);
-            blocks.push((first, last, head));
-            rest = tail;
-        }
-        blocks.into_par_iter().for_each(|(first, last, out)| {
-            let mut k = 0;
-            for &state in &sector.states[first..last] {
-                for (index, term) in flips.iter().enumerate() {
-                    if flippable(state, term.mask) {
-                        let column = sector.index_of(state ^ term.mask) as u32;
-                        out[k] = column | ((index as u32) << COLUMN_BITS);
-                        k += 1;
-                    }
-                }
+        let mut high_rank = vec![0u32; (low_bits as usize + 1) << high_bits];
+        for below in 0..=low_bits {
+            for w in 0u32..1 << high_bits {
+                high_rank[((below as usize) << high_bits) + w as usize] =
+                    rank_share(w, low_bits, below) as u32;
             }
-        });
+        }
+        let mut partners = vec![Vec::new(); sector.sites];
+        for term in chain.flip_terms() {
+            let i = term.mask.trailing_zeros();
+            let j = 31 - term.mask.leading_zeros();
+            partners[i as usize].push((j, term.amplitude));
+            partners[j as usize].push((i, term.amplitude));
+        }
         let diagonal = sector
             .states
             .par_iter()
             .map(|&s| chain.diagonal_energy(s))
             .collect();
         Self {
+            states: &sector.states,
             diagonal,
-            row_start,
-            entries,
-            amplitudes: flips.iter().map(|f| f.amplitude).collect(),
+            low_bits,
+            high_bits,
+            low_rank,
+            high_rank,
+            partners,
         }
+    }
+
+    /// Position of a word of this sector in its basis (two look-ups).
+    #[inline]
+    fn index_of(&self, state: u32) -> usize {
+        let low = state & ((1 << self.low_bits) - 1);
+        let high = (state >> self.low_bits) as usize;
+        let below = low.count_ones() as usize;
+        (self.low_rank[low as usize] + self.high_rank[(below << self.high_bits) + high]) as usize
     }
 
     /// y = H x − b·z for the optional pair (b, z) (the Lanczos recurrence's
@@ -233,14 +254,23 @@ impl SectorOperator {
                 let first = block * ROWS_PER_TASK;
                 for (offset, out) in ys.iter_mut().enumerate() {
                     let a = first + offset;
+                    let state = self.states[a];
                     let diag = self.diagonal[a];
                     let mut re = diag * x[a].re;
                     let mut im = diag * x[a].im;
-                    for &entry in &self.entries[self.row_start[a]..self.row_start[a + 1]] {
-                        let column = (entry & COLUMN_MASK) as usize;
-                        let amplitude = self.amplitudes[(entry >> COLUMN_BITS) as usize];
-                        re += amplitude * x[column].re;
-                        im += amplitude * x[column].im;
+                    // σ⁺_j σ⁻_i moves the up spin at i to an empty site j.
+                    let mut up = state;
+                    while up != 0 {
+                        let i = up.trailing_zeros();
+                        up &= up - 1;
+                        let without = state ^ (1 << i);
+                        for &(j, amplitude) in &self.partners[i as usize] {
+                            if (state >> j) & 1 == 0 {
+                                let b = self.index_of(without | (1 << j));
+                                re += amplitude * x[b].re;
+                                im += amplitude * x[b].im;
+                            }
+                        }
                     }
                     if let Some((b, z)) = back {
                         re -= b * z[a].re;
@@ -250,6 +280,21 @@ impl SectorOperator {
                 }
             });
     }
+}
+
+/// Σ_q C(offset + c_q, before + q) over the set bits c_1 < c_2 < … of `word`:
+/// the share of the combinatorial rank carried by bits that sit `offset`
+/// places higher in the full word, with `before` set bits below them.
+fn rank_share(word: u32, offset: u32, before: u32) -> usize {
+    let mut rank = 0;
+    let mut rest = word;
+    let mut p = before as usize + 1;
+    while rest != 0 {
+        rank += binomial((rest.trailing_zeros() + offset) as usize, p);
+        p += 1;
+        rest &= rest - 1;
+    }
+    rank
 }
 
 fn norm(v: &[Amp]) -> f64 {
@@ -462,7 +507,7 @@ impl KrylovOutputs<'_> {
 
 /// Krylov propagation of one vector through a list of increasing times.
 struct Propagator<'a> {
-    operator: &'a SectorOperator,
+    operator: &'a SectorOperator<'a>,
     max_dim: usize,
     tolerance: f64,
     cancel: &'a AtomicBool,
@@ -593,14 +638,34 @@ impl Propagator<'_> {
     }
 }
 
-/// The memory plan of a typicality run: the Krylov dimension is chosen first
-/// (largest that fits with one sample in flight, so it does not depend on
-/// the number of threads), then as many concurrent samples as fit.
+/// Number of random vectors drawn in sector `up` when the largest sector
+/// gets `samples`: samples · min(16, ⌈√(d_max/d_k)⌉).
+///
+/// The normalised sector estimate fluctuates by about 1/√d_k relative to its
+/// size (typicality, common practice), so small sectors are the noisiest per
+/// vector, while a vector there costs d_k/d_max of one in the largest sector.
+/// Drawing more where a sector is small (fewer where it is large) evens the
+/// sectors' relative errors at a cost that stays dominated by the largest
+/// sectors (at most 16 · samples · Σ_k √(d_k d_max) ≤ a few times the plain
+/// cost).
+#[must_use]
+pub fn vectors_in_sector(sites: usize, up: usize, samples: usize) -> usize {
+    let largest = binomial(sites, sites / 2) as f64;
+    let dim = binomial(sites, up).max(1) as f64;
+    let factor = ((largest / dim).sqrt().ceil() as usize).clamp(1, MAX_VECTOR_FACTOR);
+    samples * factor
+}
+
+/// The memory plan of a typicality run, decided from the largest sector
+/// (d = C(N, ⌊N/2⌋)): the Krylov dimension is the largest in [24, 128]
+/// whose vectors fit 192 MiB, shortened further (never below 24) when the
+/// whole plan would exceed `limit_bytes`; vectors of large sectors are
+/// propagated one at a time with the threads sharing its amplitudes.
 ///
 /// # Errors
-/// [`SpinChainError::MemoryLimit`] when not even one sample with the smallest
-/// Krylov space fits; [`SpinChainError::TooLargeForTypicality`] beyond 22
-/// sites.
+/// [`SpinChainError::MemoryLimit`] when not even the smallest Krylov space
+/// fits; [`SpinChainError::TooLargeForTypicality`] beyond
+/// [`MAX_TYPICAL_SITES`] sites.
 pub fn memory_plan(
     chain: &SpinChain,
     samples: usize,
@@ -614,35 +679,39 @@ pub fn memory_plan(
             max: MAX_TYPICAL_SITES,
         });
     }
-    let up = sites / 2;
-    let d = binomial(sites, up) as u64;
-    let per_row = chain.flip_terms().len().min(up * (sites - up)) as u64;
-    // Packed entries, row offsets, diagonal, basis words, row counts at build.
-    let operator = d * per_row * 4 + (d + 1) * 8 + d * 8 + d * 4 + d * 8;
-    let results = 2 * (samples * n_times * sites * 8) as u64;
-    let fixed = operator + results;
-    // Krylov vectors plus w, ψ and the output state, 16 bytes per amplitude.
-    let per_sample = |dim: usize| (dim as u64 + 3) * d * 16 + (n_times * sites * 8) as u64;
-    let krylov_dim = (MIN_KRYLOV_DIM..=MAX_KRYLOV_DIM)
+    let d = binomial(sites, sites / 2) as u64;
+    // Basis words, diagonal, two rank tables, per-vector results.
+    let tables = (((sites / 2 + 2) as u64) << (sites - sites / 2)) * 4;
+    let results: u64 = (0..=sites / 2)
+        .map(|k| (vectors_in_sector(sites, k, samples) * n_times * sites * 8) as u64)
+        .sum();
+    let fixed = d * 4 + d * 8 + tables + results;
+    // Krylov vectors plus w, ψ and the measured block, 16 bytes per amplitude.
+    let vectors = |dim: usize| (dim as u64 + 3) * d * 16;
+    let preferred = (MIN_KRYLOV_DIM..=MAX_KRYLOV_DIM)
         .rev()
-        .find(|&m| fixed + per_sample(m) <= limit_bytes)
+        .find(|&m| vectors(m) <= KRYLOV_BUDGET_BYTES)
+        .unwrap_or(MIN_KRYLOV_DIM);
+    let krylov_dim = (MIN_KRYLOV_DIM..=preferred)
+        .rev()
+        .find(|&m| fixed + vectors(m) <= limit_bytes)
         .ok_or_else(|| SpinChainError::MemoryLimit {
             sites,
-            needed_bytes: fixed + per_sample(MIN_KRYLOV_DIM),
+            needed_bytes: fixed + vectors(MIN_KRYLOV_DIM),
             limit_bytes,
             detail: format!(
-                "{operator} bytes for the sparse Hamiltonian of the largest sector \
-                 (dimension {d}) and {} bytes for {MIN_KRYLOV_DIM} + 3 Krylov vectors",
-                per_sample(MIN_KRYLOV_DIM)
+                "{} bytes for {MIN_KRYLOV_DIM} + 3 Krylov vectors of the largest sector \
+                 (dimension {d}) and {fixed} bytes for its basis, diagonal and results",
+                vectors(MIN_KRYLOV_DIM)
             ),
         })?;
-    let wanted = rayon::current_num_threads().min(samples).max(1);
-    let concurrent_samples = (1..=wanted)
-        .rev()
-        .find(|&c| fixed + c as u64 * per_sample(krylov_dim) <= limit_bytes)
-        .unwrap_or(1);
+    let concurrent_samples = if (d as usize) < SMALL_SECTOR {
+        rayon::current_num_threads().min(samples).max(1)
+    } else {
+        1
+    };
     Ok(MemoryPlan {
-        bytes: fixed + concurrent_samples as u64 * per_sample(krylov_dim),
+        bytes: fixed + concurrent_samples as u64 * vectors(krylov_dim),
         krylov_dim,
         concurrent_samples,
     })
@@ -661,15 +730,36 @@ fn gaussian(rng: &mut ChaCha8Rng) -> Amp {
     }
 }
 
-/// See the module documentation.
-pub(super) fn correlations(
+/// What one random vector of one sector measured: ⟨φ(t)|σᶻ_i|φ(t)⟩/⟨φ|φ⟩
+/// as a `[time, site]` array in the order of the requested times. A run is
+/// the list of these records; [`reduce`] turns any complete list, in any
+/// order, into the same bits, which is what lets a run be split into shards.
+#[derive(Debug, Clone, PartialEq)]
+pub struct VectorRecord {
+    /// Up-spin number k of the sector (k ≤ N/2).
+    pub up: usize,
+    /// Index of the vector within its sector (its random stream).
+    pub vector: usize,
+    pub ratios: Array2<f64>,
+    /// Accumulated relative error estimate of its Krylov propagation.
+    pub propagation_error: f64,
+}
+
+/// Every (sector, vector) pair of a run in its canonical order: sectors
+/// k = 1 … ⌊N/2⌋ (k = 0 has no state with the source up), vectors in order.
+#[must_use]
+pub fn vector_ids(sites: usize, samples: usize) -> Vec<(usize, usize)> {
+    (1..=sites / 2)
+        .flat_map(|k| (0..vectors_in_sector(sites, k, samples)).map(move |v| (k, v)))
+        .collect()
+}
+
+fn check_options(
     chain: &SpinChain,
     source: usize,
     times: &[f64],
     options: &TypicalityOptions,
-    progress: &(dyn Fn(f64) + Sync),
-    cancel: &AtomicBool,
-) -> Result<TypicalityResult, SpinChainError> {
+) -> Result<MemoryPlan, SpinChainError> {
     let sites = chain.sites();
     if sites > MAX_TYPICAL_SITES {
         return Err(SpinChainError::TooLargeForTypicality {
@@ -685,128 +775,213 @@ pub(super) fn correlations(
         return Err(SpinChainError::BadTolerance(tol));
     }
     chain.check_source_and_times(source, times)?;
-    let plan = memory_plan(
+    memory_plan(
         chain,
         options.samples,
         times.len(),
         options.memory_limit_bytes,
-    )?;
+    )
+}
 
+/// Propagates the vectors `select` keeps (out of [`vector_ids`]) and returns
+/// their records in canonical order. Progress counts basis states times
+/// output times over the selected vectors.
+///
+/// # Errors
+/// As [`SpinChain::correlations_typical_with`].
+pub fn vector_records(
+    chain: &SpinChain,
+    source: usize,
+    times: &[f64],
+    options: &TypicalityOptions,
+    select: &(dyn Fn(usize, usize) -> bool + Sync),
+    progress: &(dyn Fn(f64) + Sync),
+    cancel: &AtomicBool,
+) -> Result<Vec<VectorRecord>, SpinChainError> {
+    let plan = check_options(chain, source, times, options)?;
+    let sites = chain.sites();
     let n_times = times.len();
     let mut order: Vec<usize> = (0..n_times).collect();
     order.sort_by(|&a, &b| times[a].total_cmp(&times[b]));
     let sorted: Vec<f64> = order.iter().map(|&k| times[k]).collect();
 
-    let norm_factor = 1.0 / (1u64 << sites) as f64;
-    let sectors: Vec<usize> = (0..=sites / 2).collect();
-    // Progress is counted in basis states times output times; sectors
-    // without a propagation (no state with the source up) count nothing.
-    let total_units: u64 = sectors
+    let chosen: Vec<(usize, usize)> = vector_ids(sites, options.samples)
+        .into_iter()
+        .filter(|&(k, v)| select(k, v))
+        .collect();
+    let total_units: u64 = chosen
         .iter()
-        .filter(|&&k| k > 0)
-        .map(|&k| binomial(sites, k) as u64)
-        .sum::<u64>()
-        * (options.samples * n_times) as u64;
+        .map(|&(k, _)| (binomial(sites, k) * n_times) as u64)
+        .sum();
     let done_units = AtomicU64::new(0);
     let report = |units: u64| {
         let done = done_units.fetch_add(units, Ordering::Relaxed) + units;
         progress((done as f64 / total_units.max(1) as f64).min(1.0));
     };
 
-    let mut per_sample: Vec<Array2<f64>> = vec![Array2::zeros((n_times, sites)); options.samples];
-    let mut propagation_error = 0.0f64;
-    for &up in &sectors {
+    let mut records = Vec::with_capacity(chosen.len());
+    for up in 1..=sites / 2 {
+        let vectors: Vec<usize> = chosen
+            .iter()
+            .filter(|&&(k, _)| k == up)
+            .map(|&(_, v)| v)
+            .collect();
+        if vectors.is_empty() {
+            continue;
+        }
         if cancel.load(Ordering::Relaxed) {
             return Err(SpinChainError::Cancelled);
         }
         let sector = Sector::new(sites, up);
-        let weight = sector.flip_weight() * norm_factor;
-        let offset = -weight * sector.trace_sigma_z();
-        let with_up = sector.dim_with_up();
-        if with_up == 0 {
-            // No basis state has the source up: Π_j vanishes on this sector
-            // and its contribution is the constant −Tr_k σᶻ_i.
-            for sample in &mut per_sample {
-                sample.mapv_inplace(|v| v + offset);
-            }
-            continue;
-        }
         let operator = SectorOperator::build(chain, &sector);
         let propagator = Propagator {
             operator: &operator,
             max_dim: plan.krylov_dim,
-            tolerance: tol,
+            tolerance: options.step_tolerance,
             cancel,
         };
         let dim = sector.dim() as u64;
         let fine_progress = sector.dim() >= ROWS_PER_TASK;
-        let sample_ids: Vec<usize> = (0..options.samples).collect();
-        for batch in sample_ids.chunks(plan.concurrent_samples) {
-            let outcomes: Vec<Result<(Array2<f64>, f64), SpinChainError>> = batch
-                .par_iter()
-                .map(|&sample| {
-                    let mut rng = ChaCha8Rng::seed_from_u64(options.seed);
-                    rng.set_stream(((sample as u64) << 8) | up as u64);
-                    let start: Vec<Amp> = sector
-                        .states
-                        .iter()
-                        .map(|&s| {
-                            if (s >> source) & 1 == 1 {
-                                gaussian(&mut rng)
-                            } else {
-                                Amp::default()
-                            }
-                        })
-                        .collect();
-                    let mut ratios = Array2::<f64>::zeros((n_times, sites));
-                    let error = propagator.run(start, &sorted, |indices, outputs| {
-                        let batch = outputs.magnetisation_ratios(&sector.states, sites);
-                        for (&k, row) in indices.iter().zip(batch) {
-                            ratios
-                                .row_mut(order[k])
-                                .assign(&ndarray::ArrayView1::from(&row));
-                        }
-                        if fine_progress {
-                            report(dim * indices.len() as u64);
-                        }
-                    })?;
-                    if !fine_progress {
-                        report(dim * n_times as u64);
+        let concurrent = if sector.dim() < SMALL_SECTOR {
+            rayon::current_num_threads().max(1)
+        } else {
+            1
+        };
+        let run_one = |vector: usize| -> Result<VectorRecord, SpinChainError> {
+            let mut rng = ChaCha8Rng::seed_from_u64(options.seed);
+            rng.set_stream(((vector as u64) << 8) | up as u64);
+            let start: Vec<Amp> = sector
+                .states
+                .iter()
+                .map(|&s| {
+                    if (s >> source) & 1 == 1 {
+                        gaussian(&mut rng)
+                    } else {
+                        Amp::default()
                     }
-                    Ok((ratios, error))
                 })
                 .collect();
-            for (&sample, outcome) in batch.iter().zip(outcomes) {
-                let (ratios, error) = outcome?;
-                propagation_error = propagation_error.max(2.0 * error);
-                let scale = weight * 2.0 * with_up as f64;
-                per_sample[sample].zip_mut_with(&ratios, |v, r| *v += scale * r + offset);
+            let mut ratios = Array2::<f64>::zeros((n_times, sites));
+            let error = propagator.run(start, &sorted, |indices, outputs| {
+                let batch = outputs.magnetisation_ratios(&sector.states, sites);
+                for (&k, row) in indices.iter().zip(batch) {
+                    ratios
+                        .row_mut(order[k])
+                        .assign(&ndarray::ArrayView1::from(&row));
+                }
+                if fine_progress {
+                    report(dim * indices.len() as u64);
+                }
+            })?;
+            if !fine_progress {
+                report(dim * n_times as u64);
+            }
+            Ok(VectorRecord {
+                up,
+                vector,
+                ratios,
+                propagation_error: error,
+            })
+        };
+        for batch in vectors.chunks(concurrent) {
+            let outcomes: Vec<Result<VectorRecord, SpinChainError>> = if batch.len() == 1 {
+                vec![run_one(batch[0])]
+            } else {
+                batch.par_iter().map(|&v| run_one(v)).collect()
+            };
+            for outcome in outcomes {
+                records.push(outcome?);
             }
         }
     }
+    Ok(records)
+}
 
-    let count = options.samples as f64;
+/// Combines the records of a complete run into the estimate (see the
+/// module documentation). The records are put in canonical order first and
+/// every sum runs in that order, so the bits do not depend on how the run
+/// was split or in which order shards arrive.
+///
+/// # Errors
+/// [`SpinChainError::IncompleteRun`] when a (sector, vector) pair is missing,
+/// repeated or foreign to the run, or a record's shape is wrong; the other
+/// errors of the options as in [`SpinChain::correlations_typical_with`].
+pub fn reduce(
+    chain: &SpinChain,
+    source: usize,
+    times: &[f64],
+    options: &TypicalityOptions,
+    mut records: Vec<VectorRecord>,
+) -> Result<TypicalityResult, SpinChainError> {
+    let plan = check_options(chain, source, times, options)?;
+    let sites = chain.sites();
+    let n_times = times.len();
+    records.sort_by_key(|r| (r.up, r.vector));
+    let expected = vector_ids(sites, options.samples);
+    let found: Vec<(usize, usize)> = records.iter().map(|r| (r.up, r.vector)).collect();
+    if found != expected {
+        let missing = expected.iter().filter(|id| !found.contains(id)).count();
+        return Err(SpinChainError::IncompleteRun {
+            expected: expected.len(),
+            found: found.len(),
+            missing,
+        });
+    }
+    if let Some(bad) = records.iter().find(|r| r.ratios.dim() != (n_times, sites)) {
+        return Err(SpinChainError::IncompleteRun {
+            expected: n_times * sites,
+            found: bad.ratios.len(),
+            missing: 0,
+        });
+    }
+    let norm_factor = 1.0 / (1u64 << sites) as f64;
     let mut values = Array2::<f64>::zeros((n_times, sites));
-    for sample in &per_sample {
-        values += sample;
+    let mut variance = Array2::<f64>::zeros((n_times, sites));
+    let mut propagation_error = 0.0f64;
+    for up in 0..=sites / 2 {
+        let sector_dim = binomial(sites, up);
+        let weight = if 2 * up == sites { 1.0 } else { 2.0 } * norm_factor;
+        // Tr_k σᶻ_i = d_k (2k − N)/N for every site i, since a fraction k/N
+        // of the sector's basis has spin i up.
+        let trace = sector_dim as f64 * (2.0 * up as f64 - sites as f64) / sites as f64;
+        let offset = -weight * trace;
+        values.mapv_inplace(|v| v + offset);
+        let group: Vec<&VectorRecord> = records.iter().filter(|r| r.up == up).collect();
+        if group.is_empty() {
+            // k = 0: no state has the source up, only the constant remains.
+            continue;
+        }
+        let count = group.len() as f64;
+        let scale = weight * 2.0 * binomial(sites - 1, up - 1) as f64;
+        let mut mean = Array2::<f64>::zeros((n_times, sites));
+        for record in &group {
+            mean += &record.ratios;
+            propagation_error = propagation_error.max(2.0 * record.propagation_error);
+        }
+        mean.mapv_inplace(|m| m / count);
+        // Two passes (mean first, then squared deviations) so that values every
+        // vector reproduces exactly, such as C_jj(0) = 1, get an error of 0
+        // rather than the rounding residue of Σx² − S x̄².
+        let mut squares = Array2::<f64>::zeros((n_times, sites));
+        for record in &group {
+            ndarray::Zip::from(&mut squares)
+                .and(&record.ratios)
+                .and(&mean)
+                .for_each(|s, &x, &m| *s += (x - m) * (x - m));
+        }
+        // Variance of the sector mean with the unbiased sample variance.
+        ndarray::Zip::from(&mut values)
+            .and(&mut variance)
+            .and(&mean)
+            .and(&squares)
+            .for_each(|v, var, &m, &sq| {
+                *v += scale * m;
+                *var += scale * scale * sq / (count - 1.0) / count;
+            });
     }
-    values.mapv_inplace(|v| v / count);
-    // Two passes (mean first, then squared deviations) so that values every
-    // sample reproduces exactly, such as C_jj(0) = 1, get an error of 0
-    // rather than the rounding residue of Σx² − S x̄².
-    let mut squares = Array2::<f64>::zeros((n_times, sites));
-    for sample in &per_sample {
-        ndarray::Zip::from(&mut squares)
-            .and(sample)
-            .and(&values)
-            .for_each(|s, &x, &mean| *s += (x - mean) * (x - mean));
-    }
-    // Standard error of the mean with the unbiased sample variance.
-    let errors = squares.mapv(|s| (s / (count - 1.0) / count).sqrt());
-    progress(1.0);
     Ok(TypicalityResult {
         values,
-        errors,
+        errors: variance.mapv(f64::sqrt),
         samples: options.samples,
         seed: options.seed,
         source,
@@ -814,6 +989,29 @@ pub(super) fn correlations(
         propagation_error,
         memory: plan,
     })
+}
+
+/// See the module documentation.
+pub(super) fn correlations(
+    chain: &SpinChain,
+    source: usize,
+    times: &[f64],
+    options: &TypicalityOptions,
+    progress: &(dyn Fn(f64) + Sync),
+    cancel: &AtomicBool,
+) -> Result<TypicalityResult, SpinChainError> {
+    let records = vector_records(
+        chain,
+        source,
+        times,
+        options,
+        &|_, _| true,
+        progress,
+        cancel,
+    )?;
+    let result = reduce(chain, source, times, options, records)?;
+    progress(1.0);
+    Ok(result)
 }
 
 #[cfg(test)]
@@ -825,6 +1023,31 @@ mod tests {
 
     fn chain(sites: usize, alpha: f64, delta: f64) -> SpinChain {
         SpinChain::new(&Couplings::power_law(sites, 1.0, alpha).unwrap(), delta).unwrap()
+    }
+
+    #[test]
+    fn two_table_index_matches_the_combinatorial_rank() {
+        // The look-up tables against the rank computed bit by bit (the
+        // combinatorial number system of `Sector`), and H x built without a
+        // matrix against the dense sector Hamiltonian times x.
+        for (sites, up) in [(7, 3), (10, 5), (11, 2), (12, 6)] {
+            let spin_chain = chain(sites, 1.1, 0.4);
+            let sector = Sector::new(sites, up);
+            let operator = SectorOperator::build(&spin_chain, &sector);
+            for (index, &state) in sector.states.iter().enumerate() {
+                assert_eq!(operator.index_of(state), index);
+            }
+            let mut rng = ChaCha8Rng::seed_from_u64(3);
+            let x: Vec<Amp> = (0..sector.dim()).map(|_| gaussian(&mut rng)).collect();
+            let mut y = vec![Amp::default(); sector.dim()];
+            operator.apply(&x, &mut y, None);
+            let dense = spin_chain.dense_sector_hamiltonian(&sector);
+            for (a, out) in y.iter().enumerate() {
+                let re: f64 = (0..sector.dim()).map(|b| dense[(a, b)] * x[b].re).sum();
+                let im: f64 = (0..sector.dim()).map(|b| dense[(a, b)] * x[b].im).sum();
+                assert!(close(out.re, re, 1e-12, 1e-12) && close(out.im, im, 1e-12, 1e-12));
+            }
+        }
     }
 
     #[test]
@@ -1020,10 +1243,10 @@ mod tests {
     #[test]
     fn refuses_what_it_cannot_do_and_says_why() {
         let never = AtomicBool::new(false);
-        let big = chain(23, 1.0, 0.0);
+        let big = chain(25, 1.0, 0.0);
         assert!(matches!(
             big.correlations_typical(0, &[1.0], 2, 0),
-            Err(SpinChainError::TooLargeForTypicality { sites: 23, .. })
+            Err(SpinChainError::TooLargeForTypicality { sites: 25, .. })
         ));
         let small = chain(6, 1.0, 0.0);
         assert!(matches!(
@@ -1036,8 +1259,9 @@ mod tests {
             small.correlations_typical_with(0, &[1.0], &options, &|_| {}, &never),
             Err(SpinChainError::BadTolerance(_))
         ));
-        // N = 20 needs a 74 MB sparse Hamiltonian alone (184756 rows × 100
-        // entries × 4 bytes): a 64 MiB limit is refused before any work.
+        // N = 20 needs at least 27 Krylov-sized vectors of the central
+        // sector (184756 amplitudes × 16 bytes each, 80 MB): a 64 MiB limit
+        // is refused before any work.
         let mut tight = TypicalityOptions::new(2, 0);
         tight.memory_limit_bytes = 64 << 20;
         let err = chain(20, 1.0, 0.0)
@@ -1045,8 +1269,21 @@ mod tests {
             .expect_err("over the limit");
         assert!(matches!(err, SpinChainError::MemoryLimit { sites: 20, .. }));
         assert!(err.to_string().contains("memory limit"));
+        // The default plan of 20 sites stays within 300 MB with one vector
+        // in flight; 24 sites fit in 3 GB with the shortest Krylov space.
         let plan = memory_plan(&chain(20, 1.0, 0.0), 2, 50, DEFAULT_MEMORY_LIMIT_BYTES).unwrap();
-        assert!(plan.bytes <= DEFAULT_MEMORY_LIMIT_BYTES && plan.krylov_dim == MAX_KRYLOV_DIM);
+        assert!(
+            plan.bytes <= 300_000_000 && plan.krylov_dim >= 60,
+            "{plan:?}"
+        );
+        assert_eq!(plan.concurrent_samples, 1);
+        let plan = memory_plan(&chain(24, 1.0, 0.0), 2, 50, 3_000_000_000).unwrap();
+        assert!(plan.bytes <= 3_000_000_000 && plan.krylov_dim == MIN_KRYLOV_DIM);
+        let refused = memory_plan(&chain(24, 1.0, 0.0), 2, 50, 1 << 30).expect_err("too big");
+        assert!(
+            refused.to_string().contains("dimension 2704156"),
+            "{refused}"
+        );
     }
 
     #[test]
