@@ -635,3 +635,78 @@ async fn a_cached_log_never_hides_a_newer_pin() {
         }
     }
 }
+
+#[tokio::test]
+async fn fits_of_a_map_estimated_from_shots_say_its_points_are_correlated() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let shots = std::fs::read(crate::support::repo_path("tests/reference/shots/shots.csv"))
+        .expect("fixture");
+    let uri = format!("/api/s/{edit}/shots?name=run.csv&bootstrap=10&source=0");
+    let (_, summary) = send_json(&app.router, Method::POST, &uri, shots).await;
+    let id = summary["id"].as_i64().expect("id");
+    let map =
+        crate::support::upload_csv(&app.router, &edit, "g.csv", crate::support::gaussian_csv())
+            .await;
+    for (dataset, expected) in [(id, true), (map, false)] {
+        let (status, fit) = send_json(
+            &app.router,
+            Method::POST,
+            &format!("/api/s/{edit}/datasets/{dataset}/fits"),
+            serde_json::json!({"method": "collapse", "windows": {"t_min": 0.1}, "options": {"bootstrap": 0}})
+                .to_string(),
+        )
+        .await;
+        assert_eq!(status, StatusCode::OK, "{fit}");
+        let warned = fit["warnings"]
+            .as_array()
+            .expect("warnings")
+            .iter()
+            .any(|w| {
+                w.as_str()
+                    .is_some_and(|s| s.contains("estimated from shot records"))
+            });
+        assert_eq!(warned, expected, "{fit}");
+    }
+}
+
+#[tokio::test]
+async fn a_bulk_shot_map_records_its_sources_and_the_walk_fit_averages_over_them() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let shots = std::fs::read(crate::support::repo_path("tests/reference/shots/shots.csv"))
+        .expect("fixture");
+    let uri = format!("/api/s/{edit}/shots?name=bulk.csv&bootstrap=10&bulk=0:1&symmetrise=true");
+    let (status, summary) = send_json(&app.router, Method::POST, &uri, shots).await;
+    assert_eq!(status, StatusCode::CREATED, "{summary}");
+    assert_eq!(summary["meta"]["chain_length"], 6, "{summary}");
+    assert_eq!(summary["meta"]["source_window"], serde_json::json!([0, 1]));
+    assert_eq!(summary["meta"]["source_site"], serde_json::Value::Null);
+    assert_eq!(summary["meta"]["symmetrised"], true);
+    let id = summary["id"].as_i64().expect("id");
+    let (status, fit) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/{id}/fits"),
+        serde_json::json!({"method": "lattice_walk", "windows": {"t_min": 0.0}}).to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    assert_eq!(
+        fit["report"]["average"],
+        serde_json::json!({"first": 0, "last": 1, "symmetrised": true}),
+        "{fit}"
+    );
+    // A source named in the request replaces the window.
+    let (status, single) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/{id}/fits"),
+        serde_json::json!({"method": "lattice_walk", "windows": {"t_min": 0.0, "x_max": 1},
+                           "options": {"source": 1}})
+        .to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{single}");
+    assert_eq!(single["report"]["average"], serde_json::Value::Null);
+}

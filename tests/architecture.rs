@@ -172,10 +172,47 @@ fn violations_in(name: &str, text: &str, forbidden: &[&str], no_async: bool) -> 
     out
 }
 
+/// The files of modules declared test-only by their parent
+/// (`#[cfg(test)] mod tests;` in `foo.rs` or `foo/mod.rs`), with everything
+/// below them: they are tests, like inline `#[cfg(test)]` modules.
+fn test_module_files(files: &[PathBuf]) -> Vec<PathBuf> {
+    let mut out = Vec::new();
+    for file in files {
+        let Ok(parsed) = syn::parse_file(&fs::read_to_string(file).expect("readable source"))
+        else {
+            continue;
+        };
+        let stem = file.file_stem().and_then(|s| s.to_str()).unwrap_or("");
+        let dir = file.parent().expect("a file has a parent");
+        // Submodules of `mod.rs`/`lib.rs`/`main.rs` sit beside it; those of
+        // `foo.rs` in `foo/`.
+        let base = if matches!(stem, "mod" | "lib" | "main") {
+            dir.to_path_buf()
+        } else {
+            dir.join(stem)
+        };
+        for item in &parsed.items {
+            if let syn::Item::Mod(m) = item {
+                if m.content.is_none() && is_test_only(&m.attrs) {
+                    let name = m.ident.to_string();
+                    out.push(base.join(format!("{name}.rs")));
+                    out.push(base.join(name));
+                }
+            }
+        }
+    }
+    out
+}
+
 fn check(dir: &str, forbidden: &[&str], no_async: bool) {
     let mut violations = Vec::new();
-    for file in rust_files(&repo_path(dir)) {
-        let text = fs::read_to_string(&file).expect("readable source");
+    let files = rust_files(&repo_path(dir));
+    let tests = test_module_files(&files);
+    for file in files
+        .iter()
+        .filter(|f| !tests.iter().any(|t| f.starts_with(t)))
+    {
+        let text = fs::read_to_string(file).expect("readable source");
         let name = file.display().to_string();
         violations.extend(violations_in(&name, &text, forbidden, no_async));
     }
@@ -316,5 +353,33 @@ fn main_crate_layers_point_down() {
         ]
         .concat(),
         false,
+    );
+}
+
+#[test]
+fn a_test_module_in_its_own_file_is_skipped_and_nothing_else() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let m = dir.path().join("model");
+    fs::create_dir_all(m.join("stable")).expect("dirs");
+    fs::write(
+        m.join("stable/mod.rs"),
+        "#[cfg(test)]\nmod tests;\nmod series;\n",
+    )
+    .expect("w");
+    fs::write(m.join("stable/tests.rs"), "use serde_json::Value;\n").expect("w");
+    fs::write(m.join("stable/series.rs"), "use serde_json::Value;\n").expect("w");
+    let files = rust_files(&m);
+    let skipped = test_module_files(&files);
+    let kept: Vec<&PathBuf> = files
+        .iter()
+        .filter(|f| !skipped.iter().any(|t| f.starts_with(t)))
+        .collect();
+    assert!(
+        kept.iter().any(|f| f.ends_with("stable/series.rs")),
+        "{kept:?}"
+    );
+    assert!(
+        !kept.iter().any(|f| f.ends_with("stable/tests.rs")),
+        "{kept:?}"
     );
 }

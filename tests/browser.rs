@@ -41,6 +41,10 @@ fn dashboard_draws_the_demo_and_accepts_an_upload() {
         .expect("node runs");
     let stdout = String::from_utf8_lossy(&out.stdout);
     let stderr = String::from_utf8_lossy(&out.stderr);
+    // Timings are reported, never asserted (the machines are shared).
+    for line in stdout.lines().filter(|l| l.starts_with("measured:")) {
+        eprintln!("{line}");
+    }
     assert!(
         out.status.success(),
         "browser test failed:\n{stdout}\n{stderr}"

@@ -479,3 +479,82 @@ fn session_new_list_and_rename_work_on_a_data_directory() {
     assert_eq!(code, Some(2));
     assert!(err.contains("200 characters"), "{err}");
 }
+
+#[test]
+fn a_bulk_map_from_correlate_carries_its_sources_into_analyze() {
+    let dir = tempfile::tempdir().expect("temp dir");
+    let out_path = dir.path().join("bulk.csv");
+    let out = binary()
+        .arg("correlate")
+        .arg(crate::support::repo_path("tests/reference/shots/shots.csv"))
+        .args([
+            "--bulk",
+            "0:1",
+            "--symmetrise",
+            "--bootstrap",
+            "10",
+            "--out",
+        ])
+        .arg(&out_path)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let bytes = std::fs::read(&out_path).expect("written");
+    let read = ingest::parse(&bytes, Format::Csv, &IngestOptions::default()).expect("parses");
+    assert_eq!(read.meta.chain_length, Some(6));
+    assert_eq!(read.meta.source_window, Some([0, 1]));
+    assert_eq!(read.meta.source_site, None);
+    assert!(read.meta.symmetrised);
+    let analysed = binary()
+        .args(["analyze", "--json", "--bootstrap", "0"])
+        .arg(&out_path)
+        .output()
+        .expect("runs");
+    assert!(
+        analysed.status.success(),
+        "{}",
+        String::from_utf8_lossy(&analysed.stderr)
+    );
+    let report: serde_json::Value = serde_json::from_slice(&analysed.stdout).expect("json");
+    assert_eq!(report["windows"]["chain_sites"], 6, "{report}");
+    assert_eq!(
+        report["windows"]["source_average"],
+        serde_json::json!({"first": 0, "last": 1, "symmetrised": true})
+    );
+}
+
+#[test]
+fn simulate_runs_long_chains_semiclassically_with_errors() {
+    // 60 sites is beyond every exact method; `auto` and `dtwa` both take the
+    // semiclassical path, the map covers the chain, carries errors, and
+    // keeps the exact sum rule Σ_x C = 1 of the antithetic estimator
+    // (physics notes, semiclassical dynamics).
+    for method in ["auto", "dtwa"] {
+        let map = simulate(&[
+            "spin-chain",
+            "--sites",
+            "60",
+            "--alpha",
+            "1.1",
+            "--times",
+            "0,0.5,1",
+            "--method",
+            method,
+            "--trajectories",
+            "64",
+        ]);
+        assert_eq!(map.n_sites(), 60);
+        assert!(map.errors().is_some(), "{method}: errors written");
+        for row in map.values().rows() {
+            assert!(
+                (row.sum() - 1.0).abs() < 1e-9,
+                "{method}: Σ_x C = {}",
+                row.sum()
+            );
+        }
+    }
+}

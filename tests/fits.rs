@@ -93,6 +93,46 @@ async fn collapse_fit_and_slider_quality_find_z_two() {
 }
 
 #[tokio::test]
+async fn collapse_fit_gives_d_and_the_slider_measures_the_same_default_window() {
+    // The Gaussian of the shared helper is exp(−x²/(4Dt))/√(4πDt) with
+    // D = 1/2 (σ² = 2Dt; physics notes, closed form), so the collapse must
+    // return z = 2 and D = 1/2.
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let body = json!({"method": "collapse", "options": {"bootstrap": 10, "seed": 1}});
+    let (status, fit) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets/{id}/fits"),
+        body.to_string(),
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{fit}");
+    let z = fit["parameters"]["z"]["value"].as_f64().expect("z");
+    let d = fit["parameters"]["D"]["value"].as_f64().expect("D");
+    assert!((z - 2.0).abs() < 1e-3, "z = {z}");
+    assert!((d - 0.5).abs() < 5e-3, "D = {d}");
+    assert!(fit["parameters"]["D"]["err"].as_f64().is_some(), "{fit}");
+    // No window given: the slider closes it with the same rule as the fit,
+    // so S at the fitted z is the fit's S.
+    let (status, slider) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{edit}/datasets/{id}/collapse-quality?z={z}"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK, "{slider}");
+    let s_fit = fit["quality"]["collapse_quality"].as_f64().expect("S");
+    let s_slider = slider["quality"].as_f64().expect("S");
+    assert!(
+        (s_fit - s_slider).abs() <= 1e-9 * s_fit.abs().max(1.0),
+        "fit S = {s_fit}, slider S = {s_slider}"
+    );
+}
+
+#[tokio::test]
 async fn bad_fit_requests_name_their_field() {
     let app = app().await;
     let (edit, _) = new_session(&app.router).await;
@@ -241,6 +281,118 @@ async fn theory_overlays_use_the_dataset_metadata_and_give_residuals() {
     .await;
     let r = other["residual"][2][7].as_f64().expect("centre");
     assert!(r.abs() > 1e-3, "residual at the source {r}");
+}
+
+#[tokio::test]
+async fn long_chain_overlays_say_their_method_and_time_first_and_take_a_coupling_matrix() {
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    // A 41-site lattice-walk map as the dataset (the overlay's own accuracy
+    // is the physics crate's concern; here the route's choices are checked).
+    let walk = spreadscope_physics::model::lattice_walk::LatticeWalk::power_law(41, 1.0, 1.2)
+        .expect("walk");
+    let map = walk.to_correlation_map(20, &[0.0, 0.5, 1.0]).expect("map");
+    let csv = spreadscope::simulate::to_long_csv(
+        &map,
+        &[
+            "synthetic: true".into(),
+            "chain_length: 41".into(),
+            "alpha: 1.2".into(),
+        ],
+    );
+    let (_, ds) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets?name=long.csv"),
+        csv,
+    )
+    .await;
+    let id = ds["id"].as_i64().expect("id");
+    let uri = format!("/api/s/{edit}/datasets/{id}/theory");
+    let ask =
+        |body: serde_json::Value| send_json(&app.router, Method::POST, &uri, body.to_string());
+    // Before running: the method `auto` picks at 41 sites, and a time.
+    let (status, plan) = ask(json!({"model": "spin_chain", "plan": true})).await;
+    assert_eq!(status, StatusCode::OK, "{plan}");
+    assert!(
+        plan["method"]
+            .as_str()
+            .expect("method")
+            .starts_with("semiclassical DTWA"),
+        "{plan}"
+    );
+    let seconds = plan["seconds"].as_f64().expect("seconds");
+    assert!(seconds > 0.0 && seconds < 60.0, "{plan}");
+    assert_eq!(plan["sites"], 41);
+    // Small chains keep the exact methods.
+    let (_, small) = ask(json!({"model": "spin_chain", "plan": true, "sites": 10})).await;
+    assert!(
+        small["method"]
+            .as_str()
+            .expect("method")
+            .starts_with("exact"),
+        "{small}"
+    );
+    // The run: every offset of the chain, the caveat said.
+    let (status, run) = ask(json!({"model": "spin_chain", "trajectories": 64, "seed": 3})).await;
+    assert_eq!(status, StatusCode::OK, "{run}");
+    assert!(
+        run["method"].as_str().expect("method").contains("DTWA"),
+        "{run}"
+    );
+    assert!(
+        run["warnings"]
+            .as_array()
+            .expect("warnings")
+            .iter()
+            .any(|w| w.as_str().is_some_and(|s| s.contains("short-range chains"))),
+        "{run}"
+    );
+    let sum: f64 = run["C"][2]
+        .as_array()
+        .expect("row")
+        .iter()
+        .map(|v| v.as_f64().expect("value"))
+        .sum();
+    // Σ_i C_i,source = 1 exactly for every DTWA pair (physics notes).
+    assert!((sum - 1.0).abs() < 1e-9, "sum rule {sum}");
+    // A measured coupling matrix sets the chain: the 41 × 41 power law
+    // J = 1/|i−j|^1.2 given as rows gives the walk of the metadata's α.
+    let rows: Vec<Vec<f64>> = (0..41)
+        .map(|i: i32| {
+            (0..41)
+                .map(|j: i32| {
+                    if i == j {
+                        0.0
+                    } else {
+                        f64::from((i - j).abs()).powf(-1.2)
+                    }
+                })
+                .collect()
+        })
+        .collect();
+    let (status, walk_run) = ask(json!({"model": "lattice_walk", "couplings": rows})).await;
+    assert_eq!(status, StatusCode::OK, "{walk_run}");
+    assert_eq!(walk_run["parameters"]["coupling_matrix"], true);
+    let worst = walk_run["residual"]
+        .as_array()
+        .expect("rows")
+        .iter()
+        .flat_map(|r| {
+            r.as_array()
+                .expect("row")
+                .iter()
+                .map(|v| v.as_f64().expect("v").abs())
+        })
+        .fold(0.0f64, f64::max);
+    assert!(worst < 1e-12, "residual {worst}");
+    let (status, ragged) =
+        ask(json!({"model": "lattice_walk", "couplings": [[0.0, 1.0], [1.0]]})).await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{ragged}");
+    assert!(
+        ragged["error"].as_str().expect("error").contains("row 2"),
+        "{ragged}"
+    );
 }
 
 #[tokio::test]
@@ -473,4 +625,98 @@ async fn a_running_analysis_reports_steps_and_stops_when_cancelled() {
     assert_eq!(cancel["cancelled"], true);
     let (status, body) = running.await.expect("joins");
     assert_eq!(status, StatusCode::CONFLICT, "{body}");
+}
+
+#[tokio::test]
+async fn a_running_collapse_reports_each_replicate_and_stops_when_cancelled() {
+    use http_body_util::BodyExt;
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    let mut events = open_events(&app.router, &edit).await.into_body();
+    let router = app.router.clone();
+    let uri = format!("/api/s/{edit}/datasets/{id}/fits");
+    // Far more replicates than can finish before the cancel arrives.
+    let running = tokio::spawn(async move {
+        send_json(
+            &router,
+            Method::POST,
+            &uri,
+            json!({"method": "collapse", "job": "job-r", "options": {"bootstrap": 20000}})
+                .to_string(),
+        )
+        .await
+    });
+    // Progress moves through the replicates: several distinct fractions
+    // strictly between start and end.
+    let mut inside: Vec<f64> = Vec::new();
+    while inside.len() < 3 {
+        let frame = tokio::time::timeout(std::time::Duration::from_secs(60), events.frame())
+            .await
+            .expect("events arrive")
+            .expect("frame")
+            .expect("ok");
+        let text = String::from_utf8(frame.into_data().expect("data").to_vec()).expect("utf-8");
+        for v in text
+            .lines()
+            .filter_map(|l| l.strip_prefix("data: "))
+            .filter_map(|l| serde_json::from_str::<Value>(l).ok())
+        {
+            if v["kind"] == "job-progress" && v["job"] == "job-r" {
+                let f = v["fraction"].as_f64().expect("fraction");
+                if f > 0.0 && f < 1.0 && !inside.contains(&f) {
+                    inside.push(f);
+                }
+            }
+        }
+    }
+    assert!(inside.windows(2).all(|w| w[1] > w[0]), "{inside:?}");
+    let (_, cancel) = send_json(
+        &app.router,
+        Method::POST,
+        &format!("/api/s/{edit}/jobs/job-r/cancel"),
+        "",
+    )
+    .await;
+    assert_eq!(cancel["cancelled"], true);
+    let (status, body) = running.await.expect("joins");
+    assert_eq!(status, StatusCode::CONFLICT, "{body}");
+}
+
+#[tokio::test]
+async fn d_follows_the_requested_convention_in_collapse_and_profile_fits() {
+    // The helper's Gaussian has D = 1/2 in s(t) = (D t)^{1/z}; written as
+    // s(t) = D' t^{1/z} it is D' = D^{1/2} = 0.7071 (z = 2; physics notes).
+    let app = app().await;
+    let (edit, _) = new_session(&app.router).await;
+    let id = upload_gaussian(&app.router, &edit).await;
+    for method in ["collapse", "profile"] {
+        for (convention, expected) in [("rate", 0.5), ("prefactor", 0.5f64.sqrt())] {
+            let body =
+                json!({"method": method, "options": {"bootstrap": 4, "d_convention": convention}});
+            let (status, fit) = send_json(
+                &app.router,
+                Method::POST,
+                &format!("/api/s/{edit}/datasets/{id}/fits"),
+                body.to_string(),
+            )
+            .await;
+            assert_eq!(status, StatusCode::OK, "{fit}");
+            let d = fit["parameters"]["D"]["value"].as_f64().expect("D");
+            assert!(
+                (d - expected).abs() < 5e-3,
+                "{method} {convention}: D = {d}"
+            );
+            assert!(
+                fit["d_convention"]
+                    .as_str()
+                    .is_some_and(|w| w.contains(if convention == "rate" {
+                        "(D t)"
+                    } else {
+                        "D t^"
+                    })),
+                "{fit}"
+            );
+        }
+    }
 }

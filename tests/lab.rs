@@ -984,3 +984,69 @@ fn an_exported_archive_is_an_ordinary_zip_file() {
     );
     assert!(server.stop().success());
 }
+
+#[tokio::test]
+async fn an_archive_whose_manifest_was_tampered_with_is_refused_and_imports_nothing() {
+    use std::io::{Cursor, Read, Write};
+    let source = app().await;
+    let (edit, view) = new_session(&source.router).await;
+    let (status, _) = send_json(
+        &source.router,
+        Method::POST,
+        &format!("/api/s/{edit}/datasets?name=a.csv"),
+        SMALL_CSV,
+    )
+    .await;
+    assert_eq!(status, StatusCode::CREATED);
+    let (status, archive, _) = send(
+        &source.router,
+        Method::GET,
+        &format!("/api/s/{view}/archive"),
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::OK);
+    // Rewrite the archive with one member's SHA-256 in the manifest
+    // changed (its last hex digit), every member's bytes as they were.
+    let mut zip = zip::ZipArchive::new(Cursor::new(archive)).expect("a zip");
+    let mut out = zip::ZipWriter::new(Cursor::new(Vec::new()));
+    let options =
+        zip::write::SimpleFileOptions::default().compression_method(zip::CompressionMethod::Stored);
+    let mut tampered = None;
+    for k in 0..zip.len() {
+        let mut file = zip.by_index(k).expect("member");
+        let name = file.name().to_string();
+        let mut bytes = Vec::new();
+        file.read_to_end(&mut bytes).expect("reads");
+        if name == "manifest.json" {
+            let mut manifest: Value = serde_json::from_slice(&bytes).expect("json");
+            let members = manifest["datasets"][0]["members"]
+                .as_object_mut()
+                .expect("members");
+            let (member, hash) = members.iter_mut().next().expect("a member");
+            let text = hash.as_str().expect("hex").to_string();
+            let last = if text.ends_with('0') { "1" } else { "0" };
+            *hash = Value::String(format!("{}{last}", &text[..text.len() - 1]));
+            tampered = Some(member.clone());
+            bytes = serde_json::to_vec_pretty(&manifest).expect("json");
+        }
+        out.start_file(name.as_str(), options).expect("member");
+        out.write_all(&bytes).expect("writes");
+    }
+    let forged = out.finish().expect("zip").into_inner();
+    let member = tampered.expect("the manifest was rewritten");
+
+    let target = app().await;
+    let before = target.service.sessions().await.expect("sessions").len();
+    let (status, why) = send_json(&target.router, Method::POST, "/api/archives", forged).await;
+    assert_eq!(status, StatusCode::UNPROCESSABLE_ENTITY, "{why}");
+    let reason = why["error"].as_str().unwrap_or_default();
+    assert!(
+        reason.contains(&member) && reason.contains("nothing imported"),
+        "{reason}"
+    );
+    assert_eq!(
+        target.service.sessions().await.expect("sessions").len(),
+        before
+    );
+}

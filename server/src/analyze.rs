@@ -46,11 +46,13 @@ pub struct AnalyzeArgs {
     /// Largest |x| used by the fits.
     #[arg(long)]
     pub x_max: Option<i32>,
-    /// Chain length: adds the lattice-walk fit and the chain-edge check.
+    /// Chain length: adds the lattice-walk fit and the chain-edge check
+    /// (default: the file's `chain_length`).
     #[arg(long)]
     pub sites: Option<usize>,
-    /// Source site (0-based; needs --sites).
-    #[arg(long, requires = "sites")]
+    /// Source site (0-based; needs the chain length; default: the file's
+    /// `source_site`, or its `source_window` of averaged sources).
+    #[arg(long)]
     pub source: Option<usize>,
     /// Bootstrap resamples of the collapse and profile fits (0: none).
     #[arg(long, default_value_t = DEFAULT_BOOTSTRAP)]
@@ -103,12 +105,22 @@ pub fn read_map(
 /// Bad file or options (exit 2).
 pub fn run(args: &AnalyzeArgs) -> Result<(), CliError> {
     let ingested = read_map(&args.file, args.format)?;
+    // The file's metadata completes what the options leave open; a source
+    // given on the command line replaces the file's window of sources.
+    let meta = &ingested.meta;
+    let sites = args.sites.or(meta.chain_length.map(|n| n as usize));
     let options = AnalysisOptions {
         t_min: args.t_min,
         t_max: args.t_max,
         x_max: args.x_max,
-        sites: args.sites,
-        source: args.source,
+        sites,
+        source: args.source.or(meta
+            .source_site
+            .map(|j| j as usize)
+            .filter(|_| sites.is_some())),
+        average: meta
+            .source_average()
+            .filter(|_| args.source.is_none() && sites.is_some()),
         bootstrap: args.bootstrap,
         seed: args.seed,
         alpha: args.alpha,

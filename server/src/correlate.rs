@@ -8,7 +8,7 @@ use clap::Args;
 
 use crate::cli::CliError;
 use crate::ingest::shots::{ShotFormat, parse_csv};
-use crate::service::shots::ShotOptions;
+use crate::service::shots::{ShotOptions, estimate_meta};
 use crate::service::{CONVENTIONS, PROGRAM_VERSION};
 use crate::simulate::to_long_csv;
 
@@ -86,8 +86,17 @@ pub fn run(args: &CorrelateArgs) -> Result<(), CliError> {
         format!("Made by `spreadscope correlate` ({PROGRAM_VERSION}) from {name}"),
         format!("Estimator: {provenance}"),
         format!("Conventions: {CONVENTIONS}"),
-        format!("chain_length: {}", ingested.records.sites()),
     ];
+    let meta = estimate_meta(ingested.records.sites(), &result.provenance);
+    header.extend(meta.chain_length.map(|n| format!("chain_length: {n}")));
+    header.extend(meta.source_site.map(|j| format!("source_site: {j}")));
+    header.extend(
+        meta.source_window
+            .map(|[a, b]| format!("source_window: {a}:{b}")),
+    );
+    if meta.symmetrised {
+        header.push("symmetrised: yes".into());
+    }
     for rule in &result.sum_rule {
         header.push(format!(
             "sum rule at t = {}: {:.5} ± {:.5}{}",

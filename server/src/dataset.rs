@@ -2,6 +2,7 @@
 //! metadata and its summary. No I/O, no HTTP.
 
 use serde::{Deserialize, Serialize};
+use spreadscope_physics::fit::lattice_walk_fit::SourceAverage;
 
 /// Descriptive metadata of a dataset, editable by people with the edit link.
 /// Every field is optional so partial knowledge can be recorded honestly.
@@ -19,6 +20,12 @@ pub struct DatasetMeta {
     pub chain_length: Option<u32>,
     /// Source site j (0-based) of C(x,t) = C_{j+x,j}(t), if a single source.
     pub source_site: Option<u32>,
+    /// First and last source (0-based, inclusive) when C(x,t) is the mean
+    /// over a window of sources, each offset averaging the sources j with
+    /// j + x on the chain (as the shot estimator's bulk window does).
+    pub source_window: Option<[u32; 2]>,
+    /// True when C(x,t) was symmetrised, (C(x) + C(−x))/2.
+    pub symmetrised: bool,
     /// Unit of the time axis, e.g. "1/J" or "ms".
     pub time_unit: String,
     pub notes: String,
@@ -46,6 +53,25 @@ impl DatasetMeta {
                 ));
             }
         }
+        if let Some([a, b]) = self.source_window {
+            if self.source_site.is_some() {
+                return Err(
+                    "field `source_window`: give either one source site or a window \
+                     of sources, not both"
+                        .into(),
+                );
+            }
+            if a > b {
+                return Err(format!(
+                    "field `source_window`: the first source {a} is after the last {b}"
+                ));
+            }
+            if let Some(n) = self.chain_length.filter(|&n| b >= n) {
+                return Err(format!(
+                    "field `source_window`: source {b} is outside a chain of {n} sites"
+                ));
+            }
+        }
         for (name, text) in [("platform", &self.platform), ("time_unit", &self.time_unit)] {
             if text.chars().count() > 200 {
                 return Err(format!("field `{name}`: longer than 200 characters"));
@@ -55,5 +81,25 @@ impl DatasetMeta {
             return Err("field `notes`: longer than 10000 characters".into());
         }
         Ok(())
+    }
+
+    /// How the map was formed from several sources, for the lattice-walk
+    /// fit: the window of sources, or one symmetrised source; `None` for a
+    /// plain single source.
+    #[must_use]
+    pub fn source_average(&self) -> Option<SourceAverage> {
+        match (self.source_window, self.source_site) {
+            (Some([a, b]), _) => Some(SourceAverage {
+                first: a as usize,
+                last: b as usize,
+                symmetrised: self.symmetrised,
+            }),
+            (None, Some(j)) if self.symmetrised => Some(SourceAverage {
+                first: j as usize,
+                last: j as usize,
+                symmetrised: true,
+            }),
+            _ => None,
+        }
     }
 }

@@ -15,7 +15,7 @@ use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::model::stable::StableDensity;
 
 use crate::cli::CliError;
-use crate::ingest::couplings::{CouplingsImportOptions, parse_couplings};
+use crate::ingest::couplings::{CouplingConvention, CouplingsImportOptions, parse_couplings};
 use crate::service::CONVENTIONS;
 use crate::service::theory::{ModelSpec, SpinMethod, TheoryModel, model_map};
 
@@ -26,8 +26,8 @@ pub enum Model {
     Stable,
     /// Classical random walk with rates γ0 |i−j|^(−2α) on the open chain.
     LatticeWalk,
-    /// Infinite-temperature spin-chain dynamics (exact ≤ 14 sites, typicality ≤ 22;
-    /// free fermions for nearest neighbours at Δ = 0).
+    /// Infinite-temperature spin-chain dynamics (exact ≤ 14 sites, typicality ≤ 22,
+    /// semiclassical DTWA for any length; free fermions for nearest neighbours at Δ = 0).
     SpinChain,
     /// The t² (or t⁴) short-time expansion for the chain's couplings.
     ShortTime,
@@ -36,10 +36,12 @@ pub enum Model {
 #[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
 pub enum Method {
     /// Free fermions when exact (nearest neighbours, Δ = 0), else exact
-    /// diagonalisation up to 14 sites, else typicality.
+    /// diagonalisation up to 14 sites, typicality up to 18, else DTWA.
     Auto,
     Exact,
     Typicality,
+    /// Semiclassical: the discrete truncated Wigner approximation (any length).
+    Dtwa,
 }
 
 #[derive(Debug, Args)]
@@ -52,6 +54,11 @@ pub struct SimulateArgs {
     /// A measured N×N coupling matrix (CSV) replacing the power law.
     #[arg(long)]
     pub coupling_matrix: Option<PathBuf>,
+    /// The Hamiltonian the matrix file is written for: `flip-flop`
+    /// (J(σ⁺σ⁻ + h.c.), as stored), `pauli-xy` (J(σˣσˣ + σʸσʸ), doubled) or
+    /// `spin-xy` (J(SˣSˣ + SʸSʸ), halved).
+    #[arg(long, value_enum, default_value_t = CouplingConvention::FlipFlop)]
+    pub coupling_convention: CouplingConvention,
     /// Stable index μ = z of the `stable` model (0.3 ≤ μ ≤ 2).
     #[arg(long, default_value_t = 2.0)]
     pub mu: f64,
@@ -88,6 +95,9 @@ pub struct SimulateArgs {
     /// Random vectors of the typicality method.
     #[arg(long, default_value_t = 8)]
     pub samples: usize,
+    /// Trajectories of the semiclassical (DTWA) method.
+    #[arg(long, default_value_t = crate::service::theory::DEFAULT_TRAJECTORIES)]
+    pub trajectories: usize,
     /// Seed of every random number used.
     #[arg(long, default_value_t = 1)]
     pub seed: u64,
@@ -136,18 +146,26 @@ pub fn to_long_csv(map: &CorrelationMap, header: &[String]) -> String {
 /// Bad options (exit 2) or a failure writing the file.
 pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     let times = parse_times(&args.times).map_err(CliError::Input)?;
-    let matrix = match &args.coupling_matrix {
-        None => None,
+    let (matrix, matrix_notes) = match &args.coupling_matrix {
+        None => (None, Vec::new()),
         Some(path) => {
             let name = path.display().to_string();
             let file = std::fs::File::open(path)
                 .map_err(|e| CliError::Input(format!("--coupling-matrix {name}: {e}")))?;
             let read = parse_couplings(
                 std::io::BufReader::new(file),
-                &CouplingsImportOptions::default(),
+                &CouplingsImportOptions {
+                    convention: args.coupling_convention,
+                    ..CouplingsImportOptions::default()
+                },
             )
             .map_err(|e| CliError::Input(format!("--coupling-matrix {name}: {e}")))?;
-            Some(read.couplings)
+            let notes = read
+                .notes
+                .iter()
+                .map(|n| format!("notes: coupling matrix {name}: {n}"))
+                .collect();
+            (Some(read.couplings), notes)
         }
     };
     let sites = match &matrix {
@@ -174,8 +192,10 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
             Method::Auto => SpinMethod::Auto,
             Method::Exact => SpinMethod::Exact,
             Method::Typicality => SpinMethod::Typicality,
+            Method::Dtwa => SpinMethod::Dtwa,
         },
         samples: args.samples,
+        trajectories: args.trajectories,
         seed: args.seed,
     };
     let bar = indicatif::ProgressBar::new(1000);
@@ -224,6 +244,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     ]
     .into_iter()
     .chain((args.coupling_matrix.is_none()).then(|| format!("alpha: {alpha_text}")))
+    .chain(matrix_notes)
     .chain(std::iter::once(format!("notes: simulated ({how})")))
     .collect::<Vec<_>>();
     std::fs::write(&args.out, to_long_csv(&map, &header))

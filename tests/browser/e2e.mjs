@@ -419,6 +419,34 @@ async function main() {
       });
     }
 
+    if (following) {
+      await check("a map pushed by a script from outside the browsers appears on both open pages without reloading (measured); a retry stores nothing new", async () => {
+        const url = new URL(args.url);
+        const token = url.pathname.split("/").filter(Boolean).pop();
+        const name = "pushed by a script (e2e, synthetic)";
+        const push = () =>
+          fetch(`${url.origin}/api/s/${token}/datasets?name=${encodeURIComponent(name)}&format=csv`, {
+            method: "POST",
+            headers: { "Idempotency-Key": "e2e-push-once" },
+            body: "# synthetic: yes\nx,t,C\n0,0,1\n-1,1,0.2\n0,1,0.6\n1,1,0.2\n",
+          });
+        const started = Date.now();
+        const response = await push();
+        const stored = await response.json();
+        assert(response.status === 201, `the push answered ${response.status}: ${JSON.stringify(stored)}`);
+        const id = String(stored.id);
+        await Promise.all(
+          [page, follower].map((p) => p.locator(`#dataset-list li[data-dataset-id="${id}"]`).waitFor({ timeout: args.timeout })),
+        );
+        measurements.push(`a push shown on both open pages after ${Date.now() - started} ms`);
+        const retry = await push();
+        const again = await retry.json();
+        assert(retry.status === 200 && String(again.id) === id && again.already_stored === true, `the retry answered ${retry.status}: ${JSON.stringify(again)}`);
+        const listed = await page.locator("#dataset-list li", { hasText: name }).count();
+        assert(listed === 1, `the pushed map is listed ${listed} times`);
+      });
+    }
+
     // ---------------------------------------------------------------- collapse
     /** The synthetic 60 × 101 map. @type {string | null} */
     let gridId = null;
@@ -730,6 +758,21 @@ async function main() {
       });
     }
 
+    await check("the autocorrelation view draws the local exponent with its band and the reference lines", async () => {
+      await page.click("#tab-auto");
+      await page.waitForFunction(() => document.querySelector("#view-auto-zeff.js-plotly-plot") !== null, null, { timeout: 30000 });
+      const drawn = await page.evaluate(() => {
+        const gd = /** @type {any} */ (document.querySelector("#view-auto-zeff"));
+        return {
+          names: (gd.data ?? []).map((/** @type {any} */ t) => String(t.name ?? "")),
+          lines: (gd.layout?.shapes ?? []).map((/** @type {any} */ s) => Number(s.y0)),
+        };
+      });
+      assert(drawn.names.some((n) => n.includes("z_eff")), `no z_eff trace: ${drawn.names.join(", ")}`);
+      assert(drawn.names.some((n) => n.includes("±")), `no error band: ${drawn.names.join(", ")}`);
+      assert(drawn.lines.includes(1) && drawn.lines.includes(2), `reference lines at ${drawn.lines.join(", ")}`);
+    });
+
     await check("dragging across the autocorrelation sets the time window, across the slices the |x| window", async () => {
       await page.click("#tab-auto");
       await page.waitForFunction(() => document.querySelector("#view-auto.js-plotly-plot .nsewdrag") !== null);
@@ -795,6 +838,22 @@ async function main() {
         await page.click("#tab-residual");
         await page.waitForFunction(() => document.querySelector("#view-residual.js-plotly-plot .heatmaplayer image, #view-residual.js-plotly-plot canvas") !== null);
         shots.push(await sideShot(page, args.screenshot, "residual"));
+      });
+      await check("a spin-chain overlay on the 101-site map says its method and time before it runs, then draws with the method's caveat", async () => {
+        await page.click("#desk-tab-theory");
+        await page.check('input[name="theory-model"][value="spin_chain"]');
+        await page.fill("#theory-trajectories", "64");
+        await page.waitForFunction(() => /semiclassical DTWA, 64 trajectories on 101 sites/.test(document.querySelector("#theory-plan")?.textContent ?? ""), undefined, { timeout: args.timeout });
+        const plan = await page.locator("#theory-plan").innerText();
+        assert(/under a second|about \d+ (s|min)/.test(plan), `the plan line says "${plan}"`);
+        await page.click("#theory-run");
+        await page.locator("#theory-status[data-kind='ok'], #theory-status[data-kind='error']").waitFor({ timeout: Math.max(args.timeout, 120000) });
+        const status = await page.locator("#theory-status").innerText();
+        assert(status.startsWith("Drawn"), `the theory panel says "${status}"`);
+        const summary = await page.locator("#theory-summary").innerText();
+        assert(summary.includes("DTWA") && summary.includes("short-range chains"), `the overlay summary says "${summary}"`);
+        await page.fill("#theory-trajectories", "");
+        await page.check('input[name="theory-model"][value="lattice_walk"]');
       });
     } else {
       skipPending("theory overlays and the difference map", "the server has no …/theory route yet");
@@ -1196,6 +1255,24 @@ async function startPageChecks(origin, profile, dashboard, timeout) {
         performance.getEntriesByType("resource").filter((r) => r.name.includes("/vendor/")).map((r) => /** @type {PerformanceResourceTiming} */ (r).encodedBodySize),
       );
       measurements.push(`first load to the first drawn figure: ${drawn} ms (plotting bundle ${scripts.join(", ")} bytes)`);
+    });
+    await check("the dashboard offers the whole session as an archive, and the start page imports it as a new session", async () => {
+      const href = await page.locator("#archive-link").getAttribute("href");
+      assert(href !== null && href.endsWith("/archive"), `the archive link points to ${href}`);
+      const response = await fetch(new URL(/** @type {string} */ (href), origin));
+      assert(response.ok, `the archive answered ${response.status}`);
+      const bytes = Buffer.from(await response.arrayBuffer());
+      assert(bytes.subarray(0, 2).toString("latin1") === "PK", "the archive is not a zip file");
+      const file = path.join(path.dirname(profile), "session-archive.zip");
+      fs.writeFileSync(file, bytes);
+      await page.goto(`${origin}/`, { waitUntil: "domcontentloaded" });
+      const before = await page.locator("#sessions li").count();
+      await page.setInputFiles("#archive-file", file);
+      await page.click('#import-archive button[type="submit"]');
+      await page.waitForFunction(() => (document.querySelector("#start-status")?.textContent ?? "").startsWith("Imported") || document.querySelector("#start-status")?.classList.contains("error"), undefined, { timeout });
+      const status = ((await page.locator("#start-status").textContent()) ?? "").trim();
+      assert(status.startsWith("Imported"), `the start page says "${status}"`);
+      await page.waitForFunction((n) => document.querySelectorAll("#sessions li").length === n + 1, before, { timeout });
     });
     await check("a session is created and renamed from the start page", async () => {
       await page.goto(`${origin}/`, { waitUntil: "domcontentloaded" });

@@ -25,6 +25,8 @@ import { plainMessage } from "./words.js";
  * @property {boolean} nearest_neighbour
  * @property {number | null} chain_length
  * @property {number | null} source_site
+ * @property {[number, number] | null} source_window first and last source of a window mean
+ * @property {boolean} symmetrised
  * @property {string} time_unit
  * @property {string} notes
  * @property {boolean} synthetic
@@ -230,10 +232,25 @@ export const THEORY_MODELS = /** @type {const} */ (["lattice_walk", "spin_chain"
  * @property {number} [delta]
  * @property {number} [coupling]
  * @property {number} [order]
- * @property {"auto" | "exact" | "typicality"} [method] how spin-chain dynamics are computed
+ * @property {"auto" | "exact" | "typicality" | "dtwa"} [method] how spin-chain dynamics are computed
  * @property {number} [samples] random vectors of the typicality method
+ * @property {number} [trajectories] trajectories of the semiclassical method
+ * @property {number[][]} [couplings] a measured coupling matrix J_ij replacing the power law
+ * @property {boolean} [plan] only say the method and the time it would take
  * @property {number} [seed]
  * @property {string} [job] id for job-progress events and cancelling
+ */
+
+/**
+ * How a theory request would be computed, said before it runs; when the
+ * request is not complete yet, only `ready: false` and the reason.
+ * @typedef {object} TheoryPlan
+ * @property {boolean} ready
+ * @property {string} [reason] what is missing or wrong, when not ready
+ * @property {string} [method] in words
+ * @property {number} [seconds] estimated wall time on two cores
+ * @property {number} [sites]
+ * @property {number} [source]
  */
 
 /**
@@ -601,6 +618,17 @@ export class SessionApi {
     return this.postJson(`/datasets/${encodeURIComponent(String(id))}/theory`, request, signal);
   }
 
+  /**
+   * What a theory request would do and how long it would take.
+   * @param {string | number} id
+   * @param {TheoryRequest} request
+   * @param {AbortSignal} [signal]
+   * @returns {Promise<TheoryPlan>}
+   */
+  theoryPlan(id, request, signal) {
+    return this.postJson(`/datasets/${encodeURIComponent(String(id))}/theory`, { ...request, plan: true }, signal);
+  }
+
   /** @returns {Promise<ComparisonRow[]>} */
   comparison() {
     return this.request("/comparison");
@@ -634,6 +662,11 @@ export class SessionApi {
   /** @returns {string} */
   reportUrl() {
     return `${this.base}/report.html`;
+  }
+
+  /** The whole session as one archive file. @returns {string} */
+  archiveUrl() {
+    return `${this.base}/archive`;
   }
 }
 

@@ -12,7 +12,7 @@ import { wireCollapse } from "./collapse.js";
 import { wireCompare } from "./compare.js";
 import { wireCouplings } from "./couplings.js";
 import { byId, h } from "./dom.js";
-import { couplingLabel, renderDatasetList, wireUpload } from "./datasets.js";
+import { couplingLabel, renderDatasetList, sourceLabel, wireUpload } from "./datasets.js";
 import { wireDesk } from "./desk.js";
 import { wireFitRunner } from "./fitrunner.js";
 import { wireFits } from "./fits.js";
@@ -135,7 +135,7 @@ function renderFacts(d) {
     ["Platform", d.meta.platform || "not set"],
     ["Couplings", couplingLabel(d.meta)],
     ["Chain", d.meta.chain_length === null ? "length not set" : `${d.meta.chain_length} sites`],
-    ["Source site", d.meta.source_site === null ? "averaged or not set" : `j = ${d.meta.source_site}`],
+    ["Source", sourceLabel(d.meta)],
     ["Origin", d.meta.synthetic ? "synthetic (model)" : "measured"],
     ["File format", d.format.toUpperCase()],
     ["Content hash", d.content_hash.slice(0, 16) + "…", d.content_hash],

@@ -9,11 +9,13 @@
  * @property {import("./api.js").DatasetDetail | null} dataset the chosen dataset, loaded
  * @property {{windows: import("./windows.js").Windows, record: boolean}} windows the fit windows changed; `record` is false when undo made the change
  * @property {import("./api.js").FitResult} fit a fit finished
+ * @property {{dataset: string, result: import("./api.js").FitResult}} verdict a dataset's verdict (its analysis) is known
  * @property {import("./api.js").TheoryResult | null} theory a theory overlay was computed or removed
  * @property {{job: string, fraction: number}} progress a job-progress event from the server
  * @property {{reconnected: boolean}} log the log may have changed (an event, or a reconnect)
  * @property {string} view the active view changed
  * @property {number} textscale the large-text setting changed (1 = normal)
+ * @property {{name: string, matrix: number[][]} | null} couplings a coupling matrix was imported (null: none)
  */
 
 const target = new EventTarget();

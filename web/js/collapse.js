@@ -47,6 +47,8 @@ const MODEL_POINTS = 241;
  * @property {number} z
  * @property {number | null} err one-sigma error (the server's recommended one)
  * @property {string} errText where the error comes from, in words
+ * @property {number | null} D the diffusion constant fitted with z (rate convention)
+ * @property {number | null} Derr its one-sigma error (bootstrap), null without one
  * @property {number | null} quality S at the minimum
  * @property {Array<[number, number]>} scan
  * @property {Windows} windows the windows it was fitted in
@@ -381,9 +383,10 @@ function renderBand() {
   band.hidden = false;
   byId("collapse-pin", HTMLButtonElement).hidden = false;
   const q = best.quality === null ? "" : ` · S = ${formatNumber(best.quality)}`;
+  const d = best.D === null ? "" : best.Derr === null ? `, D = ${formatNumber(best.D)}` : `, D = ${withError(best.D, best.Derr)}`;
   text.textContent = best.err === null
-    ? `Best fit z = ${best.z.toFixed(3)} (no error estimate)${q}`
-    : `Best fit z = ${withError(best.z, best.err)} (${best.errText}; shaded on the slider)${q}`;
+    ? `Best fit z = ${best.z.toFixed(3)}${d} (no error estimate)${q}`
+    : `Best fit z = ${withError(best.z, best.err)}${d} (${best.errText}; z shaded on the slider)${q}`;
 }
 
 /**
@@ -402,10 +405,14 @@ function bestFrom(fit) {
     : [];
   const source = typeof report.z_err_source === "string" ? report.z_err_source : z.err_bootstrap !== null && z.err_bootstrap !== undefined ? "bootstrap" : "fit";
   const qv = fit.quality.collapse_quality ?? report.quality_min;
+  const D = fit.parameters.D;
+  const hasD = D !== undefined && Number.isFinite(D.value);
   return {
     z: z.value,
+    D: hasD ? D.value : null,
+    Derr: hasD && D.err !== null && D.err !== undefined && Number.isFinite(D.err) ? D.err : null,
     err: z.err ?? z.err_bootstrap ?? null,
-    errText: source === "bootstrap" ? "bootstrap one sigma" : source === "curvature" ? "width of the minimum" : "one sigma",
+    errText: source === "bootstrap" ? "bootstrap one sigma" : source === "profile" ? "one sigma from the χ² profile" : "one sigma",
     quality: typeof qv === "number" ? qv : null,
     scan,
     windows: {

@@ -7,6 +7,7 @@
 // api.js, views.js and plot.js.
 
 import { ApiError } from "./api.js";
+import { emit } from "./bus.js";
 import { byId, h } from "./dom.js";
 import { withError } from "./fitformat.js";
 import { formatNumber } from "./format.js";
@@ -139,6 +140,7 @@ export function wireCouplings(api) {
       answer = await api.couplings(file);
       status.textContent = `Fitted ${file.name}: ${answer.sites} × ${answer.sites} couplings.`;
       status.dataset.kind = "ok";
+      emit("couplings", { name: file.name, matrix: answer.matrix.map((row) => row.map((v) => v ?? 0)) });
     } catch (e) {
       answer = null;
       status.textContent = "";

@@ -23,6 +23,20 @@ export function couplingLabel(meta) {
 }
 
 /**
+ * Which sources C(x,t) comes from, in words, from the metadata.
+ * @param {DatasetSummary["meta"]} meta
+ * @returns {string}
+ */
+export function sourceLabel(meta) {
+  const symmetrised = meta.symmetrised ? ", symmetrised in x" : "";
+  if (meta.source_window) {
+    return `mean over sources ${meta.source_window[0]}–${meta.source_window[1]}${symmetrised}`;
+  }
+  if (meta.source_site === null || meta.source_site === undefined) return "not set (centre assumed)";
+  return `j = ${meta.source_site}${symmetrised}`;
+}
+
+/**
  * Redraws the list, keeping the chosen dataset marked.
  * @param {DatasetSummary[]} datasets
  * @param {string | null} selectedId

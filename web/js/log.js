@@ -250,6 +250,7 @@ export function wireLog(api, canEdit) {
   byId("log-csv", HTMLAnchorElement).href = api.logCsvUrl();
   byId("log-json", HTMLAnchorElement).href = api.logJsonUrl();
   byId("report-link", HTMLAnchorElement).href = api.reportUrl();
+  byId("archive-link", HTMLAnchorElement).href = api.archiveUrl();
   const compareCsv = document.getElementById("compare-csv");
   if (compareCsv instanceof HTMLAnchorElement) compareCsv.href = api.comparisonCsvUrl();
   if (canEdit) {

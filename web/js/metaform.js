@@ -17,6 +17,8 @@ const FIELDS = /** @type {const} */ ({
   nearest_neighbour: "meta-nn",
   chain_length: "meta-chain-length",
   source_site: "meta-source-site",
+  source_window: "meta-source-window",
+  symmetrised: "meta-symmetrised",
   time_unit: "meta-time-unit",
   notes: "meta-notes",
   synthetic: "meta-synthetic",
@@ -66,6 +68,8 @@ export function fillMetaForm(meta, options = {}) {
   checkbox("nearest_neighbour").checked = Boolean(meta.nearest_neighbour);
   input("chain_length").value = meta.chain_length === null || meta.chain_length === undefined ? "" : String(meta.chain_length);
   input("source_site").value = meta.source_site === null || meta.source_site === undefined ? "" : String(meta.source_site);
+  input("source_window").value = meta.source_window ? `${meta.source_window[0]}:${meta.source_window[1]}` : "";
+  checkbox("symmetrised").checked = Boolean(meta.symmetrised);
   input("time_unit").value = meta.time_unit ?? "";
   input("notes").value = meta.notes ?? "";
   checkbox("synthetic").checked = Boolean(meta.synthetic);
@@ -100,6 +104,20 @@ function optionalCount(field, label) {
 }
 
 /**
+ * The window of sources typed as “first:last” (or with a dash), or null.
+ * @returns {[number, number] | null}
+ */
+function optionalWindow() {
+  const text = input("source_window").value.trim();
+  if (text === "") return null;
+  const m = /^(\d+)\s*[:\u2013-]\s*(\d+)$/.exec(text);
+  if (m === null) {
+    throw new FieldError("source_window", `Sources averaged: “${text}” is not written first:last, e.g. 10:30.`);
+  }
+  return [Number(m[1]), Number(m[2])];
+}
+
+/**
  * Reads the form into a DatasetMeta.
  * @returns {DatasetMeta}
  * @throws {FieldError} naming the field whose text is not a number
@@ -111,6 +129,8 @@ function readMetaForm() {
     nearest_neighbour: checkbox("nearest_neighbour").checked,
     chain_length: optionalCount("chain_length", "Chain length"),
     source_site: optionalCount("source_site", "Source site"),
+    source_window: optionalWindow(),
+    symmetrised: checkbox("symmetrised").checked,
     time_unit: input("time_unit").value.trim(),
     notes: input("notes").value,
     synthetic: checkbox("synthetic").checked,

@@ -1482,8 +1482,27 @@ export function drawLocalExponent(el, input) {
   }
   const layout = baseLayout(el, timeTitle(input.unit), "z", { xType: "log" });
   layout.showlegend = true;
+  // Late points of z_eff are noisy and their band is wide: the axis shows
+  // 0 to a little above the highest reference line (or the values, if
+  // those stay higher), so the band cannot squash the lines.
+  const refTop = Math.max(2, ...input.references.map(([, v]) => v));
+  const settled = input.z_eff.filter((p) => p.err === null || p.err < 0.5).map((p) => p.z);
+  const top = Math.min(Math.max(refTop + 0.5, ...settled.map((v) => v + 0.3)), 2 * refTop + 1);
+  layout.yaxis = { ...(/** @type {PlotObject} */ (layout.yaxis)), range: [0, top] };
   layout.shapes = input.references.map(([, v]) => ({ type: "line", xref: "paper", x0: 0, x1: 1, y0: v, y1: v, line: { color: THEORY_INK, width: 1.5, dash: "dot" } }));
-  layout.annotations = input.references.map(([label, v]) => ({ xref: "paper", x: 1, xanchor: "right", y: v, yanchor: "bottom", text: plain(label), showarrow: false, font: { color: THEORY_INK, size: fs(12) } }));
+  // Labels alternate between the left and right ends so that close lines
+  // (z = 1 and 2α − 1 near α = 1) do not print over each other.
+  const byValue = [...input.references].sort((a, b) => a[1] - b[1]);
+  layout.annotations = byValue.map(([label, v], k) => ({
+    xref: "paper",
+    x: k % 2 === 0 ? 0 : 1,
+    xanchor: k % 2 === 0 ? "left" : "right",
+    y: v,
+    yanchor: "bottom",
+    text: plain(label),
+    showarrow: false,
+    font: { color: THEORY_INK, size: fs(12) },
+  }));
   return Plotly.react(el, traces, layout, config());
 }
 

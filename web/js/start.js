@@ -213,6 +213,30 @@ function main() {
     say("Session added to this browser's list.");
     await render();
   });
+  byId("import-archive", HTMLFormElement).addEventListener("submit", async (event) => {
+    event.preventDefault();
+    const input = byId("archive-file", HTMLInputElement);
+    const file = input.files?.[0];
+    if (!file) {
+      say("Choose an archive file first (a .zip downloaded from a session's log).", true);
+      return;
+    }
+    say(`Importing ${file.name}…`);
+    const response = await fetch("/api/archives", {
+      method: "POST",
+      headers: { "Content-Type": "application/zip" },
+      body: file,
+    });
+    if (!response.ok) {
+      say(`Could not import ${file.name}: ${await failure(response)}`, true);
+      return;
+    }
+    const body = await response.json();
+    remember(body.edit_token);
+    input.value = "";
+    say(`Imported ${file.name}: ${body.datasets} datasets and ${body.log_entries} log entries, in a new session with new links.`);
+    await render();
+  });
   void render();
 }
 

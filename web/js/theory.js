@@ -12,6 +12,7 @@ import { byId, h } from "./dom.js";
 import { cancelFit, jobId, trackJob, untrackJob } from "./fitrunner.js";
 import { formatNumber } from "./format.js";
 import { theoryName } from "./views.js";
+import { plainMessage } from "./words.js";
 
 /** @typedef {import("./api.js").SessionApi} SessionApi */
 /** @typedef {import("./api.js").TheoryModel} TheoryModel */
@@ -28,6 +29,7 @@ const FIELDS = /** @type {const} */ ([
   ["delta", "theory-delta", false],
   ["order", "theory-order", true],
   ["samples", "theory-samples", true],
+  ["trajectories", "theory-trajectories", true],
 ]);
 
 const state = {
@@ -40,6 +42,12 @@ const state = {
   /** @type {string | null} job id of the running computation */
   job: null,
   shown: false,
+  /** @type {{name: string, matrix: number[][]} | null} the imported coupling matrix */
+  couplings: null,
+  /** @type {AbortController | null} the pending plan request */
+  planning: null,
+  /** @type {number | null} */
+  planTimer: null,
 };
 
 /** @returns {TheoryModel} */
@@ -93,9 +101,64 @@ function readRequest() {
   }
   if (request.model === "spin_chain") {
     const method = byId("theory-method", HTMLSelectElement).value;
-    if (method === "exact" || method === "typicality") request.method = method;
+    if (method === "exact" || method === "typicality" || method === "dtwa") request.method = method;
+  }
+  const useMatrix = byId("theory-use-matrix", HTMLInputElement);
+  if (useMatrix.checked && state.couplings !== null && !useMatrix.closest("[data-models]")?.hasAttribute("hidden")) {
+    request.couplings = state.couplings.matrix;
   }
   return request;
+}
+
+/** Says, before anything runs, how the server would compute the overlay and how long it would take. */
+async function refreshPlan() {
+  const line = byId("theory-plan", HTMLElement);
+  const api = state.api;
+  const d = state.detail;
+  state.planning?.abort();
+  if (api === null || d === null) {
+    line.textContent = "";
+    return;
+  }
+  /** @type {TheoryRequest} */
+  let request;
+  try {
+    request = readRequest();
+  } catch (e) {
+    line.textContent = e instanceof Error ? e.message : String(e);
+    return;
+  }
+  const controller = new AbortController();
+  state.planning = controller;
+  try {
+    const plan = await api.theoryPlan(d.id, request, controller.signal);
+    line.textContent = plan.ready
+      ? `Will be computed by ${plan.method} on ${plan.sites} sites (source ${plan.source}): ${aboutTime(plan.seconds ?? 0)}.`
+      : `Cannot be computed yet: ${plainMessage(plan.reason ?? "")}`;
+  } catch (e) {
+    if (e instanceof DOMException && e.name === "AbortError") return;
+    line.textContent = `Cannot be computed yet: ${plainMessage(e instanceof Error ? e.message : String(e))}`;
+  }
+}
+
+/**
+ * An estimated duration in words.
+ * @param {number} seconds
+ */
+function aboutTime(seconds) {
+  if (seconds < 1) return "under a second";
+  if (seconds < 90) return `about ${Math.round(seconds)} s`;
+  if (seconds < 5400) return `about ${Math.round(seconds / 60)} min`;
+  return `about ${(seconds / 3600).toFixed(1)} h`;
+}
+
+/** Plans again shortly after the last change. */
+function schedulePlan() {
+  if (state.planTimer !== null) window.clearTimeout(state.planTimer);
+  state.planTimer = window.setTimeout(() => {
+    state.planTimer = null;
+    void refreshPlan();
+  }, 250);
 }
 
 /** Puts the dataset's metadata in the placeholders, so empty fields say what they mean. */
@@ -165,9 +228,7 @@ async function compute() {
   setProgress(0);
   trackJob(job, setProgress);
   setStatus(
-    request.model === "spin_chain"
-      ? "Computing the exact dynamics on the server; chains of 16 or more sites take a while…"
-      : "Computing on the server…",
+    request.model === "spin_chain" ? "Computing the spin-chain dynamics on the server…" : "Computing on the server…",
     "pending",
   );
   const started = performance.now();
@@ -216,6 +277,20 @@ export function wireTheory(api) {
   for (const radio of document.querySelectorAll('input[name="theory-model"]')) {
     radio.addEventListener("change", syncFields);
   }
+  const form = byId("theory-form", HTMLFormElement);
+  form.addEventListener("input", schedulePlan);
+  form.addEventListener("change", schedulePlan);
+  on("couplings", (detail) => {
+    state.couplings = detail;
+    const box = byId("theory-use-matrix", HTMLInputElement);
+    box.disabled = detail === null;
+    box.checked = detail !== null && box.checked;
+    byId("theory-use-matrix-label", HTMLElement).textContent =
+      detail === null
+        ? "Use the imported coupling matrix (import one in the Couplings view)"
+        : `Use the imported coupling matrix (${detail.name}, ${detail.matrix.length} sites)`;
+    schedulePlan();
+  });
   byId("theory-form", HTMLFormElement).addEventListener("submit", (ev) => {
     ev.preventDefault();
     void compute();
@@ -242,6 +317,7 @@ export function wireTheory(api) {
     const changed = detail === null || state.detail === null || String(detail.id) !== String(state.detail.id);
     state.detail = detail;
     fillPlaceholders();
+    schedulePlan();
     if (changed) {
       state.running?.abort();
       if (state.shown) setStatus("", "");

@@ -5,7 +5,7 @@
 // and the command line show the same verdict. Owns the banner element, which
 // it places under the dataset's title. Knows nothing about plotting.
 
-import { on } from "./bus.js";
+import { emit, on } from "./bus.js";
 import { byId, h } from "./dom.js";
 import { withTwoErrors } from "./fitformat.js";
 import { drawLocalExponent, plottingAvailable } from "./plot.js";
@@ -87,6 +87,7 @@ export async function showVerdictFor(api, detail) {
     const result = await api.fit(id, { method: "analysis", windows: {}, options: {} });
     if (showing !== id || !result.verdict) return;
     verdicts.set(id, result);
+    emit("verdict", { dataset: id, result });
     refreshBanner();
     renderVerdict(result.verdict, result.report, detail.meta.time_unit);
   } catch (e) {
@@ -96,7 +97,10 @@ export async function showVerdictFor(api, detail) {
 }
 
 on("fit", (fit) => {
-  if (fit.method === "analysis" && fit.verdict && String(fit.dataset) === showing) renderVerdict(fit.verdict, fit.report);
+  if (fit.method === "analysis" && fit.verdict && String(fit.dataset) === showing) {
+    renderVerdict(fit.verdict, fit.report);
+    emit("verdict", { dataset: String(fit.dataset), result: fit });
+  }
 });
 
 // The presentation banner shows the dataset's verdict once it is known.

@@ -15,6 +15,7 @@ import {
   clearPlot,
   downloadFigureWithProvenance,
   drawAutocorrelation,
+  drawLocalExponent,
   drawMap,
   drawSlices,
   drawSumRule,
@@ -318,7 +319,39 @@ function drawAutoView() {
     windows: getWindows(),
     dragmode: state.dragAuto,
   }).catch((e) => drawFailed("auto", e));
+  drawLocalExponentView();
 }
+
+/** The local-exponent picture of each dataset's verdict, by dataset id. @type {Map<string, any>} */
+const localExponents = new Map();
+
+/** Draws z_eff(t) under the autocorrelation from the dataset's verdict. */
+function drawLocalExponentView() {
+  const d = state.detail;
+  const el = byId("view-auto-zeff", HTMLElement);
+  const noteEl = byId("note-auto-zeff", HTMLElement);
+  if (d === null) return;
+  const picture = localExponents.get(String(d.id));
+  if (!picture || !Array.isArray(picture.z_eff) || picture.z_eff.length === 0) {
+    el.hidden = true;
+    noteEl.hidden = false;
+    noteEl.textContent = picture ? "Too few positive C(0,t) values for a local exponent." : "The local exponent is drawn once the dataset's verdict has been computed.";
+    return;
+  }
+  el.hidden = false;
+  noteEl.hidden = true;
+  drawLocalExponent(el, { z_eff: picture.z_eff, scan: picture.scan ?? [], references: picture.references ?? [], unit: d.meta.time_unit }).catch(() => {
+    el.hidden = true;
+    noteEl.hidden = false;
+    noteEl.textContent = "The local exponent could not be drawn.";
+  });
+}
+
+on("verdict", ({ dataset, result }) => {
+  const report = /** @type {Record<string, unknown>} */ (result.report ?? {});
+  localExponents.set(dataset, report.local_exponent_picture ?? null);
+  if (state.detail !== null && String(state.detail.id) === dataset) drawLocalExponentView();
+});
 
 function drawSumView() {
   const d = state.detail;

@@ -1,7 +1,9 @@
-//! Benchmark of the collapse quality S(z) on the size the dashboard's
-//! collapse slider works with: 101 sites × 60 times (DEVELOPERS.md, performance
-//! targets). Target: one evaluation ≤ 5 ms. Plain timing loop (no harness):
-//! `cargo bench -p spreadscope-physics --bench collapse`.
+//! Benchmark of the collapse: the quality S(z) on the size the dashboard's
+//! collapse slider works with, 101 sites × 60 times (DEVELOPERS.md,
+//! performance targets; one evaluation ≤ 5 ms), and the master-curve fit
+//! of z and D with the default bootstrap on 101 × 60 and 401 × 400 maps
+//! (its share of the analysis targets, 0.5 s and 10 s). Plain timing loop
+//! (no harness): `cargo bench -p spreadscope-physics --bench collapse`.
 
 use ndarray::Array2;
 use spreadscope_physics::CorrelationMap;
@@ -54,8 +56,33 @@ fn main() {
     time_per_call("best(), no bootstrap, 101 x 60", 10, |_| {
         black_box(quality.best(&no_bootstrap).expect("runs"));
     });
-    time_per_call("best(), 50 bootstrap replicates, 101 x 60", 2, |_| {
+    let fit_only = CollapseOptions {
+        bootstrap_resamples: 0,
+        quality: false,
+        quality_scan: false,
+        ..CollapseOptions::default()
+    };
+    time_per_call(
+        "best(), z and D only (no S), no bootstrap, 101 x 60",
+        10,
+        |_| {
+            black_box(quality.best(&fit_only).expect("runs"));
+        },
+    );
+    time_per_call("best(), default bootstrap (100), 101 x 60", 3, |_| {
         black_box(quality.best(&CollapseOptions::default()).expect("runs"));
+    });
+    let large = synthetic_map(401, 400);
+    let large_quality = CollapseQuality::new(&large).expect("valid");
+    time_per_call("best(), no bootstrap, 401 x 400", 1, |_| {
+        black_box(large_quality.best(&no_bootstrap).expect("runs"));
+    });
+    time_per_call("best(), default bootstrap (100), 401 x 400", 1, |_| {
+        black_box(
+            large_quality
+                .best(&CollapseOptions::default())
+                .expect("runs"),
+        );
     });
     let small = synthetic_map(41, 10);
     let small_quality = CollapseQuality::new(&small).expect("valid");

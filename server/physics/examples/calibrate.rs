@@ -3,9 +3,10 @@
 //! `fit::calibration` for the cases): bias, scatter, mean stated error and
 //! one-sigma coverage of √(stat² + window²).
 //!
-//! Run: `cargo run --release -p spreadscope-physics --example calibrate -- [COPIES] [BOOTSTRAP]`
+//! Run: `cargo run --release -p spreadscope-physics --example calibrate -- [COPIES] [BOOTSTRAP] [WORD]`
 //! (defaults 40 copies, 0 resamples: the statistical error is then the
-//! fit's covariance, scaled by √(χ²/dof) for poor fits).
+//! fit's covariance, scaled by √(χ²/dof) for poor fits; WORD runs only the
+//! cases whose name contains it, e.g. `shots`).
 
 use spreadscope_physics::fit::calibration::{cases, run};
 
@@ -26,10 +27,11 @@ fn count_arg(args: &[String], position: usize, name: &str, default: usize) -> us
 
 fn main() {
     let args: Vec<String> = std::env::args().skip(1).collect();
-    if args.len() > 2 {
-        eprintln!("calibrate: at most two arguments, COPIES and BOOTSTRAP");
+    if args.len() > 3 {
+        eprintln!("calibrate: at most three arguments, COPIES, BOOTSTRAP and WORD");
         std::process::exit(2);
     }
+    let word = args.get(2).map_or("", String::as_str);
     let copies = count_arg(&args, 0, "COPIES", 40);
     let bootstrap = count_arg(&args, 1, "BOOTSTRAP", 0);
     println!("calibration: {copies} seeded copies per case, {bootstrap} bootstrap resamples");
@@ -37,7 +39,7 @@ fn main() {
         "{:<34} {:<22} {:>7} {:>9} {:>9} {:>9} {:>9}",
         "case (true z)", "estimator", "applied", "bias", "scatter", "mean err", "coverage"
     );
-    for case in cases() {
+    for case in cases().into_iter().filter(|c| c.name.contains(word)) {
         let s = run(&case, copies, bootstrap);
         for e in &s.estimators {
             println!(

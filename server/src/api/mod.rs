@@ -26,6 +26,7 @@ use tower_http::set_header::SetResponseHeaderLayer;
 use tower_http::timeout::TimeoutLayer;
 
 use crate::dataset::DatasetMeta;
+use crate::ingest::couplings::CouplingConvention;
 use crate::ingest::shots::ShotFormat;
 use crate::ingest::{Format, IngestOptions};
 use crate::service::exports::FitTable;
@@ -442,13 +443,24 @@ async fn reestimate(
     Ok((StatusCode::CREATED, Json(json!(summary))).into_response())
 }
 
+#[derive(Debug, Default, Deserialize)]
+#[serde(deny_unknown_fields)]
+struct CouplingsQuery {
+    /// The Hamiltonian the file is written for (`flip-flop`, `pauli-xy`,
+    /// `spin-xy`).
+    #[serde(default)]
+    convention: CouplingConvention,
+}
+
 async fn couplings(
     State(service): State<Service>,
     Path(token): Path<String>,
+    query: QueryResult<CouplingsQuery>,
     body: Bytes,
 ) -> ApiResult<Json<Value>> {
     service.access(&token).await?;
-    Ok(Json(service.couplings(body.to_vec()).await?))
+    let q = from_query(query)?;
+    Ok(Json(service.couplings(body.to_vec(), q.convention).await?))
 }
 
 /// The format of an upload: the `format` parameter when given, else a guess

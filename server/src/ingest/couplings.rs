@@ -7,8 +7,9 @@
 //!
 //! Layout: N rows of N numbers, row i holding J_i0 … J_i(N−1) in the
 //! convention H = Σ_{i<j} J_ij (σ⁺_i σ⁻_j + h.c. + …) (single-particle
-//! hopping K_ij = J_ij; a matrix written for J(SˣSˣ + SʸSʸ) must be halved,
-//! the physics notes). Cells are separated by `,`, tab, `;` or white space (the
+//! hopping K_ij = J_ij), or in another one named by [`CouplingConvention`]
+//! (J(SˣSˣ + SʸSʸ) is halved, J(σˣσˣ + σʸσʸ) doubled, physics notes); the
+//! notes always state the convention read. Cells are separated by `,`, tab, `;` or white space (the
 //! first row decides); `#` starts a comment line; blank lines are skipped.
 //! A first row without any number is a header and is skipped; a first row
 //! whose first cell is empty (as `pandas.DataFrame.to_csv` writes it) is a
@@ -34,11 +35,50 @@ pub const MAX_COUPLING_SITES: usize = 4096;
 /// (the tolerance of [`Couplings::from_matrix`]).
 const SYMMETRY_REL: f64 = 1e-9;
 
+/// The Hamiltonian a matrix file is written for; spreadscope keeps
+/// J_ij of H = Σ_{i<j} J_ij (σ⁺_i σ⁻_j + h.c.) (physics notes). With
+/// σ⁺σ⁻ + h.c. = (σˣσˣ + σʸσʸ)/2 and S = σ/2 (common practice, no source):
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Deserialize, clap::ValueEnum)]
+#[serde(rename_all = "kebab-case")]
+pub enum CouplingConvention {
+    /// J_ij (σ⁺_i σ⁻_j + h.c.): taken as written.
+    #[default]
+    FlipFlop,
+    /// J_ij (σˣ_i σˣ_j + σʸ_i σʸ_j): twice the flip-flop coupling.
+    PauliXy,
+    /// J_ij (Sˣ_i Sˣ_j + Sʸ_i Sʸ_j), S = σ/2: half the flip-flop coupling.
+    SpinXy,
+}
+
+impl CouplingConvention {
+    /// Factor from the file's J to spreadscope's flip-flop J.
+    #[must_use]
+    pub fn factor(self) -> f64 {
+        match self {
+            Self::FlipFlop => 1.0,
+            Self::PauliXy => 2.0,
+            Self::SpinXy => 0.5,
+        }
+    }
+
+    /// The convention in words, as the notes state it.
+    #[must_use]
+    pub fn words(self) -> &'static str {
+        match self {
+            Self::FlipFlop => "H = Σ J_ij (σ⁺_i σ⁻_j + h.c.)",
+            Self::PauliXy => "H = Σ J_ij (σˣ_i σˣ_j + σʸ_i σʸ_j)",
+            Self::SpinXy => "H = Σ J_ij (Sˣ_i Sˣ_j + Sʸ_i Sʸ_j), S = σ/2",
+        }
+    }
+}
+
 /// How to read a matrix.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub struct CouplingsImportOptions {
     /// Accept an asymmetric matrix and use (J + Jᵀ)/2.
     pub symmetrise: bool,
+    /// The Hamiltonian the file's numbers belong to.
+    pub convention: CouplingConvention,
 }
 
 /// A successfully read coupling matrix.
@@ -238,6 +278,20 @@ pub fn parse_couplings<R: BufRead>(
             100.0 * asymmetry
         ));
     }
+    let factor = options.convention.factor();
+    if options.convention == CouplingConvention::FlipFlop {
+        notes.push(format!(
+            "read in the convention {} (spreadscope's)",
+            options.convention.words()
+        ));
+    } else {
+        matrix.mapv_inplace(|v| v * factor);
+        notes.push(format!(
+            "read in the convention {} and multiplied by {factor} to spreadscope's {}",
+            options.convention.words(),
+            CouplingConvention::FlipFlop.words()
+        ));
+    }
     let couplings = Couplings::from_matrix(matrix).map_err(|e| IngestError {
         problems: vec![super::Problem {
             line: None,
@@ -265,6 +319,36 @@ mod tests {
         match parse_couplings(text.as_bytes(), &CouplingsImportOptions::default()) {
             Ok(c) => panic!("expected refusal, got {:?}", c.couplings),
             Err(e) => e.problems,
+        }
+    }
+
+    #[test]
+    fn the_convention_scales_the_matrix_and_is_stated() {
+        // σ⁺σ⁻ + h.c. = (σˣσˣ + σʸσʸ)/2 and S = σ/2 (common practice, no
+        // source): a file written for J(σˣσˣ + σʸσʸ) doubles, one for
+        // J(SˣSˣ + SʸSʸ) halves.
+        let text = "0,1,0.5\n1,0,1\n0.5,1,0\n";
+        for (convention, factor) in [
+            (CouplingConvention::FlipFlop, 1.0),
+            (CouplingConvention::PauliXy, 2.0),
+            (CouplingConvention::SpinXy, 0.5),
+        ] {
+            let read = parse_couplings(
+                text.as_bytes(),
+                &CouplingsImportOptions {
+                    convention,
+                    ..CouplingsImportOptions::default()
+                },
+            )
+            .expect("reads");
+            let m = read.couplings.matrix();
+            assert!((m[(0, 1)] - factor).abs() < 1e-15, "{convention:?}");
+            assert!((m[(0, 2)] - 0.5 * factor).abs() < 1e-15, "{convention:?}");
+            assert!(
+                read.notes.iter().any(|n| n.contains(convention.words())),
+                "{:?}",
+                read.notes
+            );
         }
     }
 
@@ -338,7 +422,10 @@ mod tests {
         );
         let c = parse_couplings(
             text.as_bytes(),
-            &CouplingsImportOptions { symmetrise: true },
+            &CouplingsImportOptions {
+                symmetrise: true,
+                ..CouplingsImportOptions::default()
+            },
         )
         .expect("symmetrised");
         assert!(close(c.couplings.get(0, 2), 0.45, 1e-15, 0.0));

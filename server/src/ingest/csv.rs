@@ -14,8 +14,8 @@
 //! the header row, cells trimmed and stripped of surrounding double quotes,
 //! `#` starting a comment anywhere on a line, blank lines skipped. Comment
 //! lines `# key: value` before the header fill [`DatasetMeta`] for the keys
-//! platform, alpha, nearest_neighbour, chain_length, source_site, time_unit,
-//! notes and synthetic. Lines are counted from 1 over every line of the file.
+//! platform, alpha, nearest_neighbour, chain_length, source_site,
+//! source_window (`A:B`), symmetrised, time_unit, notes and synthetic. Lines are counted from 1 over every line of the file.
 //!
 //! Reads the byte slice line by line without copying the whole input. Knows
 //! nothing of other formats, the file system or HTTP.
@@ -330,6 +330,28 @@ impl MetaReader {
                     self.meta.nearest_neighbour = b;
                 }
                 "nearest_neighbour"
+            }
+            "symmetrised" | "symmetrized" => {
+                if let Some(b) = flag(value, "symmetrised", line, problems) {
+                    self.meta.symmetrised = b;
+                }
+                "symmetrised"
+            }
+            "source_window" => {
+                let parsed = value.split_once(':').and_then(|(a, b)| {
+                    Some([a.trim().parse::<u32>().ok()?, b.trim().parse::<u32>().ok()?])
+                });
+                match parsed {
+                    Some(w) => self.meta.source_window = Some(w),
+                    None => problems.at(
+                        line,
+                        format!(
+                            "metadata `source_window`: `{value}` is not two site numbers \
+                             written A:B (first and last source, from 0)"
+                        ),
+                    ),
+                }
+                "source_window"
             }
             "synthetic" => {
                 if let Some(b) = flag(value, "synthetic", line, problems) {
@@ -828,6 +850,20 @@ mod tests {
         // DatasetMeta::validate blames source_site, given on line 1.
         assert_eq!(lines_of(&cross), vec![Some(1)]);
         assert!(cross[0].reason.contains("source_site"));
+        let window =
+            accept("# chain_length: 20\n# source_window: 5:14\n# symmetrised: yes\nx,t,C\n0,0,1\n");
+        assert_eq!(window.meta.source_window, Some([5, 14]));
+        assert!(window.meta.symmetrised);
+        let outside = refuse(b"# chain_length: 20\n# source_window: 5:20\nx,t,C\n0,0,1\n");
+        assert_eq!(lines_of(&outside), vec![Some(2)]);
+        assert!(
+            outside[0].reason.contains("source_window"),
+            "{}",
+            outside[0].reason
+        );
+        let garbled = refuse(b"# source_window: 5-14\nx,t,C\n0,0,1\n");
+        assert_eq!(lines_of(&garbled), vec![Some(1)]);
+        assert!(garbled[0].reason.contains("A:B"), "{}", garbled[0].reason);
         let nn = accept("# alpha: inf\nx,t,C\n0,0,1\n");
         assert_eq!(nn.meta.alpha, None);
         assert!(nn.meta.nearest_neighbour);

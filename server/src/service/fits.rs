@@ -13,8 +13,10 @@ use serde::{Deserialize, Serialize};
 use serde_json::{Map, Value, json};
 use spreadscope_physics::CorrelationMap;
 use spreadscope_physics::fit::analysis::{AnalysisError, AnalysisOptions, analyze_with_progress};
-use spreadscope_physics::fit::collapse::{CollapseOptions, CollapseQuality};
-use spreadscope_physics::fit::lattice_walk_fit::{LatticeWalkFitOptions, fit_lattice_walk};
+use spreadscope_physics::fit::collapse::{CollapseError, CollapseOptions, CollapseQuality};
+use spreadscope_physics::fit::lattice_walk_fit::{
+    LatticeWalkFitOptions, SourceAverage, fit_lattice_walk, walk_window_start,
+};
 use spreadscope_physics::fit::profile::{
     ProfileModel, ProfileOptions, compare_profiles, fit_profile,
 };
@@ -203,6 +205,25 @@ fn param(value: f64, err: f64) -> Parameter {
     }
 }
 
+/// D in the requested convention from the rate convention's D at exponent
+/// z: value, interval and bias mapped by D ↦ D^{1/z}, errors to first order
+/// (`DConvention::convert`).
+fn d_in(mut p: Parameter, z: f64, convention: DConvention) -> Parameter {
+    if convention == DConvention::Rate {
+        return p;
+    }
+    let rate = p.value;
+    let map = |v: f64| convention.convert(v, 0.0, z).0;
+    let (value, _) = convention.convert(rate, 0.0, z);
+    p.err = p.err.map(|e| convention.convert(rate, e, z).1);
+    p.err_bootstrap = p.err_bootstrap.map(|e| convention.convert(rate, e, z).1);
+    p.err_sys = p.err_sys.map(|e| convention.convert(rate, e, z).1);
+    p.interval = p.interval.map(|[a, b]| [map(a), map(b)]);
+    p.bias = p.bias.map(|b| map(rate + b) - value);
+    p.value = value;
+    p
+}
+
 /// A parameter from an estimator line's measurement.
 fn measured(m: &spreadscope_physics::fit::verdict::Measured) -> Parameter {
     Parameter {
@@ -343,7 +364,29 @@ impl FitInput {
             .unwrap_or(sites.saturating_sub(1) / 2);
         Ok((sites, source))
     }
+
+    /// The window of sources the map averages (from the metadata), unless
+    /// the request names one source.
+    fn average(&self, options: &FitOptions) -> Option<SourceAverage> {
+        average_of(&self.meta, options)
+    }
 }
+
+/// The metadata's window of sources, unless the request names one source.
+fn average_of(meta: &crate::dataset::DatasetMeta, options: &FitOptions) -> Option<SourceAverage> {
+    if options.source.is_some() {
+        None
+    } else {
+        meta.source_average()
+    }
+}
+
+/// Said on every fit of a map estimated from shot records.
+pub const SHOT_MAP_WARNING: &str = "this map was estimated from shot records: its points share \
+    initial states (the bootstrap over states correlates offsets and times, and a renormalised \
+    map shares one factor per time), while the fit treats every point as independent, so its \
+    χ² and errors assume what the map does not have; on synthetic shot maps the calibration \
+    (README) found the intervals still cover the truth in 72–88 % of copies";
 
 /// Runs one estimator. Pure apart from the cancel flag.
 fn compute(
@@ -414,23 +457,46 @@ fn compute(
         }
         FitMethod::Collapse => {
             let quality_fn = CollapseQuality::new(map).map_err(bad)?;
-            if !progress(0.0) {
-                return Err(ServiceError::Cancelled);
-            }
             let report = quality_fn
-                .best(&CollapseOptions {
-                    z_min: options.z_min,
-                    z_max: options.z_max,
-                    bootstrap_resamples: options.bootstrap,
-                    seed: options.seed,
-                    ..CollapseOptions::default()
-                })
-                .map_err(bad)?;
+                .best_with_progress(
+                    &CollapseOptions {
+                        z_min: options.z_min,
+                        z_max: options.z_max,
+                        bootstrap_resamples: options.bootstrap,
+                        seed: options.seed,
+                        ..CollapseOptions::default()
+                    },
+                    progress,
+                )
+                .map_err(|e| match e {
+                    CollapseError::Cancelled => ServiceError::Cancelled,
+                    other => bad(other),
+                })?;
             let mut z = param(report.z, report.z_err);
             z.err_bootstrap = report.z_err_bootstrap;
+            z.interval = Some(report.z_interval);
+            z.bias = report.z_bias;
             parameters.insert("z".into(), z);
+            if report.d.is_finite() {
+                let mut d = param(report.d, report.d_err);
+                d.err_bootstrap = report.d_err.is_finite().then_some(report.d_err);
+                d.interval = report.d_err.is_finite().then_some(report.d_interval);
+                d.bias = report.d_bias;
+                parameters.insert("D".into(), d_in(d, report.z, options.d_convention));
+            }
             quality.insert("collapse_quality".into(), json!(report.quality_min));
+            quality.insert("chi2_dof".into(), json!(report.chi2_dof));
             quality.insert("n_points".into(), json!(report.n_points));
+            if report.poor_fit {
+                warnings.push(format!(
+                    "the curves do not fall on one master curve within their errors \
+                     (χ²/dof = {:.2}): errors scaled by √(χ²/dof)",
+                    report.chi2_dof
+                ));
+            }
+            if !report.d_err.is_finite() && report.d.is_finite() {
+                warnings.push("D has no error without the bootstrap".into());
+            }
             if !report.errors_known {
                 warnings.push(
                     "the map has no errors: the collapse quality is not in units of the noise"
@@ -449,8 +515,11 @@ fn compute(
         FitMethod::Profile => profile(map, options),
         FitMethod::LatticeWalk => {
             let (sites, source) = input.chain(options)?;
-            let report =
-                fit_lattice_walk(map, &LatticeWalkFitOptions::new(sites, source)).map_err(bad)?;
+            let walk_options = match input.average(options) {
+                Some(a) => LatticeWalkFitOptions::averaged(sites, a),
+                None => LatticeWalkFitOptions::new(sites, source),
+            };
+            let report = fit_lattice_walk(map, &walk_options).map_err(bad)?;
             parameters.insert("gamma0".into(), param(report.gamma0, report.gamma0_err));
             parameters.insert("alpha".into(), param(report.alpha, report.alpha_err));
             parameters.insert("z".into(), param(report.z, report.z_err));
@@ -509,6 +578,7 @@ fn compute(
                     x_max: input.windows.x_max,
                     sites,
                     source: source.filter(|_| sites.is_some()),
+                    average: input.average(options).filter(|_| sites.is_some()),
                     bootstrap: options.bootstrap,
                     seed: options.seed,
                     alpha: input.meta.alpha,
@@ -594,6 +664,7 @@ pub fn default_windows(
         map,
         options.sites.or(meta.chain_length.map(|n| n as usize)),
         options.source.or(meta.source_site.map(|j| j as usize)),
+        average_of(meta, options),
     );
     window_rule::choose(
         map,
@@ -770,7 +841,13 @@ fn profile(map: &CorrelationMap, options: &FitOptions) -> ServiceResult<Computed
     };
     let mut d = param(chosen.d, chosen.d_err);
     d.err_bootstrap = chosen.d_err_bootstrap;
-    parameters.insert("D".into(), d);
+    parameters.insert("D".into(), d_in(d, chosen.mu, options.d_convention));
+    // The profile is narrowest at the window's start: s = (D t_min)^{1/μ}.
+    let t_min = chosen.t_window[0];
+    let scale = (chosen.d * t_min).powf(1.0 / chosen.mu);
+    if let Some(w) = spreadscope_physics::fit::diagnosis::lattice_scale(chosen.mu, scale, t_min) {
+        warnings.push(w.message);
+    }
     let mut mu = param(chosen.mu, chosen.mu_err);
     mu.err_bootstrap = chosen.mu_err_bootstrap;
     if chosen.model == ProfileModel::Gaussian {
@@ -829,7 +906,12 @@ impl Service {
                     x_max: choice.x_max,
                 }
             }
-            FitMethod::LatticeWalk | FitMethod::ShortTime | FitMethod::Analysis => request.windows,
+            // The walk starts a few coherence times in unless asked otherwise.
+            FitMethod::LatticeWalk => Windows {
+                t_min: request.windows.t_min.or_else(|| walk_window_start(&full)),
+                ..request.windows
+            },
+            FitMethod::ShortTime | FitMethod::Analysis => request.windows,
         };
         let family: Vec<Windows> = match method {
             FitMethod::Tail | FitMethod::Width | FitMethod::Collapse | FitMethod::Profile => {
@@ -845,6 +927,12 @@ impl Service {
             _ => Vec::new(),
         };
         let rule = match method {
+            FitMethod::LatticeWalk if request.windows.t_min.is_none() && used.t_min.is_some() => {
+                "from three coherence times in (where C(0,t) has fallen to 1/e, times three): \
+                 before that the dynamics is coherent, not a walk; every later time within the \
+                 request's bounds"
+                    .to_string()
+            }
             FitMethod::LatticeWalk | FitMethod::ShortTime => {
                 "the request's bounds (this fit models every time)".to_string()
             }
@@ -915,8 +1003,11 @@ impl Service {
         if cancel.load(Ordering::SeqCst) {
             return Err(ServiceError::Cancelled);
         }
-        let ((parameters, quality, termination, warnings, report, seed), overlay, headline) =
+        let ((parameters, quality, termination, mut warnings, report, seed), overlay, headline) =
             outcome?;
+        if summary.format.starts_with("shots-") {
+            warnings.push(SHOT_MAP_WARNING.to_string());
+        }
         let verdict = headline.as_ref().map(|h| h.verdict.clone());
         let (windows, rule) = match (method, headline) {
             (FitMethod::Analysis, Some(h)) => (h.windows, h.rule),

@@ -90,7 +90,8 @@ impl QualityCache {
 
 impl Service {
     /// The collapse quality S at one z (for dragging a slider), from the
-    /// prepared measure of the dataset's window (prepared on first use).
+    /// prepared measure of the dataset's window (prepared on first use);
+    /// bounds the request leaves open come from the one window rule.
     ///
     /// # Errors
     /// NotFound, BadRequest for a bad window or z.
@@ -110,9 +111,23 @@ impl Service {
         let measure = match self.quality_cache.get(&key) {
             Some(measure) => measure,
             None => {
-                let (_, map) = self.dataset(access, dataset).await?;
+                let (summary, map) = self.dataset(access, dataset).await?;
                 let measure = tokio::task::spawn_blocking(move || {
-                    let windowed = windows.apply(&map)?;
+                    // Open bounds are closed by the one window rule, as the
+                    // fits route does: the slider's S and the best fit's S
+                    // describe the same points.
+                    let choice = crate::service::fits::default_windows(
+                        &map,
+                        &summary.meta,
+                        windows,
+                        &crate::service::fits::FitOptions::default(),
+                    );
+                    let used = Windows {
+                        t_min: Some(choice.t_min),
+                        t_max: Some(choice.t_max),
+                        x_max: choice.x_max,
+                    };
+                    let windowed = used.apply(&map)?;
                     CollapseQuality::new(&windowed)
                         .map(Arc::new)
                         .map_err(|e| ServiceError::BadRequest(format!("fit: {e}")))

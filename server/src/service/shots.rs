@@ -7,12 +7,12 @@ use serde::Deserialize;
 use serde_json::{Value, json};
 use spreadscope_physics::fit::couplings_fit::{CouplingsFitOptions, fit_power_law};
 use spreadscope_physics::model::shots::{
-    EstimateOptions, Readout, ShotEstimate, SourceWindow, estimate,
+    EstimateOptions, EstimateProvenance, Readout, ShotEstimate, SourceWindow, estimate,
 };
 
 use super::{Access, DatasetSummary, Service, ServiceError, ServiceResult, StoredDataset};
 use crate::dataset::DatasetMeta;
-use crate::ingest::couplings::{CouplingsImportOptions, parse_couplings};
+use crate::ingest::couplings::{CouplingConvention, CouplingsImportOptions, parse_couplings};
 use crate::ingest::shots::{ShotFormat, ShotsIngested};
 
 /// Estimator options as people type them (query string or command line).
@@ -139,6 +139,26 @@ pub fn correlate(
 }
 
 /// The shot format of a stored dataset's format label.
+/// The metadata that says how a map estimated from shots was formed: its
+/// chain length and its source, or its window of sources, and whether it
+/// was symmetrised (the lattice-walk fit forms its model the same way).
+#[must_use]
+pub fn estimate_meta(sites: usize, provenance: &EstimateProvenance) -> DatasetMeta {
+    let (first, last) = provenance.sources;
+    let site = |j: usize| u32::try_from(j).ok();
+    DatasetMeta {
+        chain_length: site(sites),
+        source_site: if first == last { site(first) } else { None },
+        source_window: if first == last {
+            None
+        } else {
+            site(first).zip(site(last)).map(|(a, b)| [a, b])
+        },
+        symmetrised: provenance.options.symmetrise,
+        ..DatasetMeta::default()
+    }
+}
+
 fn stored_format(label: &str) -> ShotFormat {
     match label {
         "shots-npz" => ShotFormat::Npz,
@@ -229,11 +249,18 @@ impl Service {
     /// # Errors
     /// Invalid with every problem of the file; BadRequest when the fit is
     /// impossible.
-    pub async fn couplings(&self, bytes: Vec<u8>) -> ServiceResult<Value> {
+    pub async fn couplings(
+        &self,
+        bytes: Vec<u8>,
+        convention: CouplingConvention,
+    ) -> ServiceResult<Value> {
         self.heavy(move || {
             let read = parse_couplings(
                 std::io::Cursor::new(bytes),
-                &CouplingsImportOptions::default(),
+                &CouplingsImportOptions {
+                    convention,
+                    ..CouplingsImportOptions::default()
+                },
             )
             .map_err(ServiceError::Invalid)?;
             let fit = fit_power_law(&read.couplings, None, &CouplingsFitOptions::default())
@@ -293,9 +320,8 @@ impl Service {
         ));
         notes.extend(result.warnings.iter().cloned());
         let meta = DatasetMeta {
-            chain_length: u32::try_from(ingested.records.sites()).ok(),
             notes: "Correlations estimated from uploaded shot records.".into(),
-            ..DatasetMeta::default()
+            ..estimate_meta(ingested.records.sites(), &result.provenance)
         };
         self.store_dataset(StoredDataset {
             session_id,

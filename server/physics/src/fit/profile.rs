@@ -413,6 +413,10 @@ fn unit_density(mu: f64) -> Result<UnitDensity, ProfileError> {
     })
 }
 
+/// Largest |x|/s a density table covers; beyond it the table continues
+/// its end slope (the power-law tail).
+const MAX_TABLE_U: f64 = 1e8;
+
 /// Step of the interpolation grid in w = asinh(u/c).
 const TABLE_STEP: f64 = 0.03;
 
@@ -709,6 +713,14 @@ impl<'a> StableProblem<'a> {
     }
 
     fn table(&self, mu: f64, u_needed: f64) -> Option<Rc<DensityTable>> {
+        // A trial step with D → 0 asks for u → ∞ (or NaN): beyond
+        // MAX_TABLE_U the table's power-law end carries on, so the grid
+        // never needs more (an unbounded request overflowed its length).
+        let u_needed = if u_needed.is_finite() {
+            u_needed.min(MAX_TABLE_U)
+        } else {
+            MAX_TABLE_U
+        };
         if let Some(t) = self
             .cache
             .borrow()
@@ -1240,6 +1252,40 @@ mod tests {
             exact[ij] + errors[ij] * standard_normal(&mut rng)
         });
         CorrelationMap::complete(x, times.to_vec(), values, Some(errors)).expect("valid map")
+    }
+
+    #[test]
+    fn a_free_fermion_map_never_panics_the_profile_fit() {
+        // C = J_x(2t)² of the XX chain (a front, no stable law): in the
+        // window t = 2–20 a trial step drove D → 0 and asked the density
+        // table for an unbounded range ("capacity overflow"). The fit must
+        // answer with a result or an error. Model: free fermions, exact.
+        use crate::model::couplings::Couplings;
+        use crate::model::free_fermion::FreeFermionChain;
+        let sites = 121;
+        let times = crate::testing::log_times(1.0, 20.0, 25);
+        let h = Array2::from_shape_fn(
+            (sites, sites),
+            |(i, j)| {
+                if i.abs_diff(j) == 1 { 1.0 } else { 0.0 }
+            },
+        );
+        let chain =
+            FreeFermionChain::new(&Couplings::from_matrix(h).expect("couplings")).expect("chain");
+        let values = chain.correlations(60, &times).expect("correlations");
+        let x: Vec<i32> = (0..sites).map(|i| i as i32 - 60).collect();
+        let errors = Array2::from_elem(values.dim(), 1e-4);
+        let map = CorrelationMap::complete(x, times, values, Some(errors)).expect("map");
+        for (t0, x_max) in [(2.0, None), (1.0, Some(20)), (5.0, Some(40))] {
+            let window = map.window(Some(t0), Some(20.0), x_max).expect("window");
+            let options = ProfileOptions {
+                bootstrap: 0,
+                ..ProfileOptions::default()
+            };
+            if let Ok(c) = compare_profiles(&window, &options) {
+                assert!(c.stable.mu.is_finite() && c.stable.d.is_finite(), "{c:?}");
+            }
+        }
     }
 
     #[test]

@@ -359,7 +359,7 @@ pub fn widths(map: &CorrelationMap, options: &WidthOptions) -> (Vec<WidthPoint>,
         let t_value = match total {
             Total::Fixed(v) | Total::Map(v) => v,
         };
-        if !(t_value > 0.0) {
+        if t_value.is_nan() || t_value <= 0.0 {
             continue;
         }
         let inside = |x: i32| x.abs() <= reach;

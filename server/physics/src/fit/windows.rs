@@ -50,6 +50,7 @@
 
 use crate::CorrelationMap;
 use crate::fit::diagnosis::{EDGE_FRACTION, Edges, SUM_RULE_TOLERANCE, edge_fraction};
+use crate::fit::lattice_walk_fit::SourceAverage;
 
 /// Fewest times a scaling window must hold.
 pub const MIN_TIMES: usize = 3;
@@ -91,12 +92,41 @@ impl ChainBasis {
     }
 }
 
-/// A chain of `sites` sites seen from `source`.
+/// A chain of `sites` sites seen from `source`, or from the window of
+/// sources `average` when the map is a mean over several (then `source` is
+/// the window's first).
 #[derive(Debug, Clone, Copy, PartialEq, Eq, serde::Serialize)]
 pub struct Chain {
     pub sites: usize,
     pub source: usize,
     pub basis: ChainBasis,
+    pub average: Option<SourceAverage>,
+}
+
+impl Chain {
+    /// The chain's ends as offsets: for a window of sources, the nearest
+    /// ends any source of it sees (−first and N − 1 − last; the nearer of
+    /// the two on both sides when symmetrised).
+    #[must_use]
+    pub fn edges(&self) -> Edges {
+        match self.average {
+            None => Edges::of_chain(self.sites, self.source),
+            Some(a) => {
+                let left = a.first as i64;
+                let right = self.sites as i64 - 1 - a.last as i64;
+                let (left, right) = if a.symmetrised {
+                    (left.min(right), left.min(right))
+                } else {
+                    (left, right)
+                };
+                Edges {
+                    left: -i32::try_from(left).unwrap_or(i32::MAX),
+                    right: i32::try_from(right).unwrap_or(i32::MAX),
+                    chain: true,
+                }
+            }
+        }
+    }
 }
 
 /// The user's bounds (each optional).
@@ -167,16 +197,25 @@ pub struct FamilyMember {
 }
 
 /// Infers the chain when `sites` is not given (rule 1), or completes the
-/// given one.
+/// given one; a window of sources (`average`) counts only with `sites`.
 #[must_use]
 pub fn chain_of(
     map: &CorrelationMap,
     sites: Option<usize>,
     source: Option<usize>,
+    average: Option<SourceAverage>,
 ) -> Option<Chain> {
     let x = map.offsets();
     let (first, last) = (x[0], x[x.len() - 1]);
     let contiguous = i64::from(last) - i64::from(first) + 1 == x.len() as i64;
+    if let (Some(sites), Some(a)) = (sites, average) {
+        return Some(Chain {
+            sites,
+            source: a.first,
+            basis: ChainBasis::Given,
+            average: Some(a),
+        });
+    }
     if let Some(sites) = sites {
         let (source, basis) = match source {
             Some(s) => (s, ChainBasis::Given),
@@ -189,6 +228,7 @@ pub fn chain_of(
             sites,
             source,
             basis,
+            average: None,
         });
     }
     if !(contiguous && first <= 0 && last >= 0 && map.n_missing() == 0 && x.len() >= 3) {
@@ -202,16 +242,14 @@ pub fn chain_of(
         sites: x.len(),
         source: first.unsigned_abs() as usize,
         basis: ChainBasis::InferredFromMap,
+        average: None,
     })
 }
 
 /// The scaling window of `map` by the rule of the module documentation.
 #[must_use]
 pub fn choose(map: &CorrelationMap, bounds: Bounds, chain: Option<Chain>) -> WindowChoice {
-    let edges = chain.map_or_else(
-        || Edges::of_map(map),
-        |c| Edges::of_chain(c.sites, c.source),
-    );
+    let edges = chain.map_or_else(|| Edges::of_map(map), |c| c.edges());
     let plateau = chain.map(|c| 1.0 / c.sites as f64);
     let noise_words = if map.errors().is_some() {
         "the peak of C > 3 δC"
@@ -429,7 +467,7 @@ mod tests {
         let exact = walk.propagate(30, &times).expect("propagates");
         let x = (-30..=30).collect();
         let map = CorrelationMap::complete(x, times, exact, None).expect("map");
-        let chain = chain_of(&map, None, None).expect("chain inferred");
+        let chain = chain_of(&map, None, None, None).expect("chain inferred");
         assert_eq!((chain.sites, chain.source), (61, 30));
         assert_eq!(chain.basis, ChainBasis::InferredFromMap);
         let choice = choose(&map, Bounds::default(), Some(chain));
@@ -458,7 +496,7 @@ mod tests {
             gaussian(f64::from(x[j]), times[i], 0.5)
         });
         let map = CorrelationMap::complete(x, times, values, None).expect("map");
-        assert!(chain_of(&map, None, None).is_none());
+        assert!(chain_of(&map, None, None, None).is_none());
         let choice = choose(&map, Bounds::default(), None);
         assert_eq!(choice.end, WindowEnd::Edges);
         assert!(choice.asymptotic);

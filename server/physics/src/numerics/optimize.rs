@@ -514,7 +514,7 @@ fn sum_sq(r: &[f64]) -> f64 {
 
 /// Solves the symmetric positive (semi)definite system `a x = b` (a is k × k,
 /// row-major): Cholesky first, the SVD pseudo-inverse when Cholesky fails.
-fn solve_spd(a: &[f64], b: &[f64], k: usize) -> Vec<f64> {
+pub(crate) fn solve_spd(a: &[f64], b: &[f64], k: usize) -> Vec<f64> {
     let mat = Mat::<f64>::from_fn(k, k, |i, j| a[i * k + j]);
     let rhs = Mat::<f64>::from_fn(k, 1, |i, _| b[i]);
     if let Ok(llt) = mat.llt(Side::Lower) {

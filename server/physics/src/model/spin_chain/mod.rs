@@ -23,6 +23,9 @@
 //! H to itself, σᶻ_i to −σᶻ_i and sector k to sector N − k, so sector N − k
 //! contributes to Tr[σᶻ_i(t) σᶻ_j] exactly what sector k contributes. Only the
 //! sectors k ≤ N/2 are therefore computed, those with k < N/2 counted twice.
+//!
+//! Longer chains are left to the semiclassical [`dtwa`] module (any length
+//! up to [`MAX_DTWA_SITES`], validated against exact dynamics in its docs).
 
 pub mod dtwa;
 pub mod exact;
@@ -48,6 +51,11 @@ pub const MAX_EXACT_SITES: usize = 14;
 /// C(24, 12) = 2704156 states, 43 MB per complex vector); the memory plan
 /// refuses a run that does not fit its limit.
 pub const MAX_TYPICAL_SITES: usize = 24;
+
+/// Largest chain the semiclassical method accepts: each step multiplies the
+/// N × N coupling matrices with the spins of a batch, so the cost grows like
+/// N²; 2000 sites is where one trajectory to t = 10 takes about a second.
+pub const MAX_DTWA_SITES: usize = 2000;
 
 /// Why a spin-chain computation was refused or stopped.
 #[derive(Debug, Clone, PartialEq, Error)]
@@ -87,9 +95,17 @@ pub enum SpinChainError {
         limit_bytes: u64,
         detail: String,
     },
+    #[error("spin chain: the semiclassical method handles at most {max} sites, got {sites}")]
+    TooLargeForDtwa { sites: usize, max: usize },
     #[error(
-        "spin chain: the typicality records do not make up one run: expected {expected}, \
-         found {found}, {missing} missing (shards of different runs, or a shard left out)"
+        "spin chain: the semiclassical method needs at least 4 trajectories to state an error, got {0}"
+    )]
+    TooFewTrajectories(usize),
+    #[error("spin chain: the semiclassical step scale must lie in (0, 0.5], got {0}")]
+    BadStepScale(f64),
+    #[error(
+        "spin chain: the parts do not make up one run: expected {expected}, found {found}, \
+         {missing} missing (parts of different runs, or a part left out)"
     )]
     IncompleteRun {
         expected: usize,
