@@ -7,6 +7,7 @@
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 16 4   # sites, samples
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 22 2 1  # ... and t_max
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 20 2 10 1.2 20  # ... α, times
+//!   cargo bench -p spreadscope-physics --bench spin_chain -- 16 2 10 1.2 20 1e-12  # ... step tolerance
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- exact 12 14
 //! The default run also starts the scipy reference (full 2^N space,
 //! `expm_multiply`, the same chain, times and number of random vectors) at
@@ -38,14 +39,24 @@ fn cpu_seconds() -> Option<f64> {
     Some(ticks / 100.0)
 }
 
-fn run(sites: usize, samples: usize, t_max: f64, alpha: f64, n_times: usize) {
+fn run(
+    sites: usize,
+    samples: usize,
+    t_max: f64,
+    alpha: f64,
+    n_times: usize,
+    tolerance: Option<f64>,
+) {
     let couplings = Couplings::power_law(sites, 1.0, alpha).expect("valid couplings");
     let chain = SpinChain::new(&couplings, 0.0).expect("valid chain");
     let times: Vec<f64> = (0..n_times)
         .map(|k| t_max * (k + 1) as f64 / n_times as f64)
         .collect();
     let source = sites / 2;
-    let options = TypicalityOptions::new(samples, 2024);
+    let mut options = TypicalityOptions::new(samples, 2024);
+    if let Some(tolerance) = tolerance {
+        options.step_tolerance = tolerance;
+    }
     let never = AtomicBool::new(false);
     let cpu_start = cpu_seconds();
     let start = Instant::now();
@@ -147,21 +158,22 @@ fn main() {
     let args: Vec<f64> = raw.iter().filter_map(|a| a.parse().ok()).collect();
     let count = |x: f64| x as usize;
     match args.as_slice() {
-        [sites, samples, t_max, alpha, n_times, ..] => run(
+        [sites, samples, t_max, alpha, n_times, rest @ ..] => run(
             count(*sites),
             count(*samples),
             *t_max,
             *alpha,
             count(*n_times),
+            rest.first().copied(),
         ),
-        [sites, samples, t_max, ..] => run(count(*sites), count(*samples), *t_max, 1.0, 50),
-        [sites, samples] => run(count(*sites), count(*samples), 10.0, 1.0, 50),
-        [sites] => run(count(*sites), 2, 10.0, 1.0, 50),
+        [sites, samples, t_max, ..] => run(count(*sites), count(*samples), *t_max, 1.2, 20, None),
+        [sites, samples] => run(count(*sites), count(*samples), 10.0, 1.2, 20, None),
+        [sites] => run(count(*sites), 2, 10.0, 1.2, 20, None),
         _ => {
-            run(16, 2, 10.0, 1.2, 20);
+            run(16, 2, 10.0, 1.2, 20, None);
             run_scipy(16, 2, 1.2, 20);
-            run(18, 2, 10.0, 1.2, 20);
-            run(20, 2, 10.0, 1.2, 20);
+            run(18, 2, 10.0, 1.2, 20, None);
+            run(20, 2, 10.0, 1.2, 20, None);
         }
     }
 }
