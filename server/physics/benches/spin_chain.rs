@@ -26,6 +26,7 @@ use std::sync::atomic::AtomicBool;
 use std::time::Instant;
 
 use spreadscope_physics::model::couplings::Couplings;
+use spreadscope_physics::model::spin_chain::typicality::{reduce, vector_records};
 use spreadscope_physics::model::spin_chain::{SpinChain, TypicalityOptions};
 
 /// User + system CPU seconds of this process so far (Linux `/proc`).
@@ -60,9 +61,23 @@ fn run(
     let never = AtomicBool::new(false);
     let cpu_start = cpu_seconds();
     let start = Instant::now();
-    let result = chain
-        .correlations_typical_with(source, &times, &options, &|_| {}, &never)
-        .expect("typicality run");
+    // The two halves of `correlations_typical_with`, to see the records.
+    let records = vector_records(
+        &chain,
+        source,
+        &times,
+        &options,
+        &|_, _| true,
+        &|_| {},
+        &never,
+    )
+    .expect("typicality run");
+    let central: Vec<u64> = records
+        .iter()
+        .filter(|r| r.up == sites / 2)
+        .map(|r| r.applications)
+        .collect();
+    let result = reduce(&chain, source, &times, &options, records).expect("complete run");
     let seconds = start.elapsed().as_secs_f64();
     let cpu = match (cpu_start, cpu_seconds()) {
         (Some(a), Some(b)) => format!("{:.2} s CPU", b - a),
@@ -77,11 +92,13 @@ fn run(
         rayon::current_num_threads()
     );
     println!(
-        "    {} vectors, {:.1} Hamiltonian applications per vector; memory plan {:.0} MiB \
+        "    {} vectors, {:.1} Hamiltonian applications per vector ({:?} in the largest \
+         sector); memory plan {:.0} MiB \
          (Krylov dim {}, {} vectors in flight); C(0, t_max) = {:.6} ± {:.1e}; sum rule at \
          t_max: {:.3e} off; largest standard error {:.1e}; propagation bound {:.1e}",
         result.vectors,
         result.applications as f64 / result.vectors.max(1) as f64,
+        central,
         result.memory.bytes as f64 / (1u64 << 20) as f64,
         result.memory.krylov_dim,
         result.memory.concurrent_samples,
