@@ -111,26 +111,26 @@ def sparse_hamiltonian(j, delta):
     return h, zs
 
 
-def bench(sites, samples, seed):
+def bench(sites, samples, seed, alpha=1.0, n_times=50):
     start = time.perf_counter()
-    j = couplings(sites, 1.0)
+    j = couplings(sites, alpha)
     h, zs = sparse_hamiltonian(j, 0.0)
     source = sites // 2
     rng = np.random.default_rng(seed)
-    total = np.zeros((50, sites))
+    total = np.zeros((n_times, sites))
     for _ in range(samples):
         psi = rng.standard_normal(2**sites) + 1j * rng.standard_normal(2**sites)
         psi = psi * (zs[source] > 0)
         states = scipy.sparse.linalg.expm_multiply(
-            -1j * h, psi, start=0.0, stop=10.0, num=51, endpoint=True
+            -1j * h, psi, start=0.0, stop=10.0, num=n_times + 1, endpoint=True
         )[1:]
         probs = np.abs(states) ** 2
         total += (probs @ zs.T) / probs.sum(axis=1)[:, None]
     elapsed = time.perf_counter() - start
     values = total / samples
     print(
-        f"scipy {scipy.__version__}: N = {sites}, alpha = 1, Delta = 0, {samples} samples, "
-        f"50 times to t = 10: {elapsed:.2f} s wall; C(0, 10) = {values[-1, source]:.6f}; "
+        f"scipy {scipy.__version__}: N = {sites}, alpha = {alpha}, Delta = 0, {samples} samples, "
+        f"{n_times} times to t = 10: {elapsed:.2f} s wall; C(0, 10) = {values[-1, source]:.6f}; "
         f"sum rule at t = 10 off by {abs(values[-1].sum() - 1.0):.1e}"
     )
 
@@ -141,11 +141,13 @@ def main():
     parser.add_argument("--sites", type=int, default=16)
     parser.add_argument("--samples", type=int, default=4)
     parser.add_argument("--seed", type=int, default=2024)
+    parser.add_argument("--alpha", type=float, default=1.0)
+    parser.add_argument("--times", type=int, default=50)
     args = parser.parse_args()
     if args.fixture:
         fixture()
     else:
-        bench(args.sites, args.samples, args.seed)
+        bench(args.sites, args.samples, args.seed, args.alpha, args.times)
 
 
 if __name__ == "__main__":

@@ -3,7 +3,8 @@
 //! computes the infinite-temperature correlation C_ij(t) from it:
 //! [`SpinChain::correlations_exact`] (full diagonalisation of every sector,
 //! N ≤ 14) and [`SpinChain::correlations_typical`] (dynamical typicality with
-//! Krylov propagation, N ≤ 22).
+//! Krylov propagation, matrix-free, N ≤ 24). Longer chains are left to the
+//! semiclassical [`dtwa`] module.
 //!
 //! Owns: the Hamiltonian convention, the sector bases (combinatorial index),
 //! the diagonal and off-diagonal matrix elements, and the conversion of the
@@ -44,11 +45,12 @@ pub use typicality::{MemoryPlan, TypicalityOptions, TypicalityResult};
 /// (a few hundred MB, tens of seconds on two cores) are the practical limit.
 pub const MAX_EXACT_SITES: usize = 14;
 
-/// Largest chain the typicality method accepts: basis states are stored as
-/// 32-bit words and the packed sparse Hamiltonian keeps a sector column in 24
-/// bits (C(22, 11) = 705432 < 2^24) and a coupling index in 8 bits
-/// (22·21/2 = 231 < 256 pairs).
-pub const MAX_TYPICAL_SITES: usize = 22;
+/// Largest chain the typicality method accepts: basis states are 32-bit
+/// words and the Hamiltonian is applied without being stored, so the limit is
+/// the memory of the Krylov vectors (the central sector of 24 sites has
+/// C(24, 12) = 2704156 states, 43 MB per complex vector); the memory plan
+/// refuses a run that does not fit its limit.
+pub const MAX_TYPICAL_SITES: usize = 24;
 
 /// Largest chain the semiclassical method accepts: each step multiplies the
 /// N × N coupling matrices with the spins of a batch, so the cost grows like
@@ -118,11 +120,11 @@ pub enum SpinChainError {
     Map(#[from] MapError),
 }
 
-/// Binomial coefficients C(n, r) for 0 ≤ n, r ≤ 23 (Pascal's triangle).
-const BINOMIAL: [[usize; 24]; 24] = {
-    let mut table = [[0usize; 24]; 24];
+/// Binomial coefficients C(n, r) for 0 ≤ n, r ≤ 32 (Pascal's triangle).
+const BINOMIAL: [[usize; 33]; 33] = {
+    let mut table = [[0usize; 33]; 33];
     let mut n = 0;
-    while n < 24 {
+    while n < 33 {
         table[n][0] = 1;
         let mut r = 1;
         while r <= n {
@@ -205,12 +207,6 @@ impl Sector {
     /// 1 for the self-conjugate sector k = N/2.
     pub(crate) fn flip_weight(&self) -> f64 {
         if 2 * self.up == self.sites { 1.0 } else { 2.0 }
-    }
-
-    /// Tr over this sector of σᶻ_i, the same for every site i:
-    /// d (2k − N)/N, since a fraction k/N of the basis has spin i up.
-    pub(crate) fn trace_sigma_z(&self) -> f64 {
-        self.dim() as f64 * (2.0 * self.up as f64 - self.sites as f64) / self.sites as f64
     }
 }
 
