@@ -25,7 +25,7 @@ pub enum Model {
     Stable,
     /// Classical random walk with rates γ0 |i−j|^(−2α) on the open chain.
     LatticeWalk,
-    /// Infinite-temperature spin-chain dynamics (exact ≤ 14 sites, typicality ≤ 22,
+    /// Infinite-temperature spin-chain dynamics (exact ≤ 14 sites, typicality ≤ 24,
     /// semiclassical DTWA for any length; free fermions for nearest neighbours at Δ = 0).
     SpinChain,
     /// The t² (or t⁴) short-time expansion for the chain's couplings.

@@ -129,9 +129,9 @@ impl ModelSpec {
     /// - DTWA: 9.1e-10 s per trajectory, Runge–Kutta step and N² (100 sites,
     ///   10⁴ trajectories, 470 steps: 43 s), plus 3e-7 s per trajectory and
     ///   step (12 sites, 4000 trajectories: 0.4 s);
-    /// - typicality: 17 s for 20 sites, 2 vectors, t = 10, scaled by the
-    ///   vectors, by t and by 2^N N² (sector dimensions times the flip-flop
-    ///   terms per basis state);
+    /// - typicality: 40 s for 20 sites, 2 vectors, t = 10 (41 s of CPU
+    ///   measured on the shared machine), scaled by the vectors, by t and by
+    ///   2^N N² (sector dimensions times the flip-flop terms per state);
     /// - exact: 2e-9 s per Σ_k d_k³ over the sectors k ≤ N/2;
     /// - the others: N³ · 1e-9 s plus a millisecond.
     ///
@@ -163,7 +163,7 @@ impl ModelSpec {
                 }
                 Resolved::Typicality => (
                     format!("dynamical typicality, {} random vectors", self.samples),
-                    17.0 * (self.samples as f64 / 2.0) * (t_max / 10.0) * (2f64.powf(n) * n * n)
+                    40.0 * (self.samples as f64 / 2.0) * (t_max / 10.0) * (2f64.powf(n) * n * n)
                         / (2f64.powi(20) * 400.0),
                 ),
                 Resolved::Dtwa => {
