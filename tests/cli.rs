@@ -679,3 +679,75 @@ fn shards_of_a_semiclassical_run_merge_into_exactly_the_file_of_one_run() {
     assert_eq!(out.status.code(), Some(2));
     assert!(String::from_utf8_lossy(&out.stderr).contains("--shard 1/2"));
 }
+
+#[test]
+fn shards_of_a_typicality_run_merge_into_exactly_the_file_of_one_run() {
+    // The random vectors of every sector, split three ways by their place in
+    // the canonical order, reduce to the single run's bits (the records are
+    // summed in canonical order whatever the parts).
+    let dir = tempfile::tempdir().expect("temp dir");
+    let base = [
+        "simulate",
+        "spin-chain",
+        "--sites",
+        "10",
+        "--alpha",
+        "1.1",
+        "--delta",
+        "0.3",
+        "--times",
+        "0,0.5,1.5",
+        "--method",
+        "typicality",
+        "--samples",
+        "2",
+        "--seed",
+        "4",
+    ];
+    let whole = dir.path().join("whole.csv");
+    let out = binary()
+        .args(base)
+        .arg("--out")
+        .arg(&whole)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let mut parts = Vec::new();
+    for k in 1..=3 {
+        let part = dir.path().join(format!("t-{k}.json"));
+        let out = binary()
+            .args(base)
+            .args(["--shard", &format!("{k}/3"), "--out"])
+            .arg(&part)
+            .output()
+            .expect("runs");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        parts.push(part);
+    }
+    let merged = dir.path().join("merged.csv");
+    let out = binary()
+        .arg("merge")
+        .args([&parts[1], &parts[2], &parts[0]])
+        .arg("--out")
+        .arg(&merged)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert_eq!(
+        std::fs::read(&merged).expect("merged"),
+        std::fs::read(&whole).expect("whole"),
+        "the merged file differs from the single run's"
+    );
+}

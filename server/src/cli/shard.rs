@@ -1,14 +1,16 @@
-//! Semiclassical runs split into shards and merged: `simulate spin-chain
-//! --method dtwa --shard K/N --out part-K.json` computes the trajectory
-//! batches b with b mod N = K − 1 (each batch has its own random stream
-//! derived from the run's seed, physics crate `dtwa`), and `spreadscope
-//! merge part-*.json --out map.csv` adds them in batch order into exactly the
-//! file one run writes — same bits, same header.
+//! Sampled runs split into shards and merged: `simulate spin-chain --method
+//! dtwa|typicality --shard K/N --out part-K.json` computes every N-th unit of
+//! the run, starting with unit K − 1 — the trajectory batches of DTWA, or the
+//! (sector, vector) pairs of typicality in their canonical order — each with
+//! its own random stream derived from the run's seed (physics crate), and
+//! `spreadscope merge part-*.json --out map.csv` reduces them in canonical
+//! order into exactly the file one run writes — same bits, same header.
 //!
 //! A shard file is JSON (floats written in shortest round-trip form and read
 //! back exactly): the format name and version, which part of how many, the
-//! run (couplings J_ij, Δ, source, times, trajectories, seed and the header
-//! of the final file, equal in every part) and the batch sums. The merge
+//! run (couplings J_ij, Δ, source, times, method and its settings, seed and
+//! the header of the final file, equal in every part) and the part's batch
+//! sums (DTWA) or vector records (typicality). The merge
 //! refuses, naming the file, parts of different runs, a part given twice or
 //! missing, and files that are not shards.
 
@@ -21,14 +23,55 @@ use serde::{Deserialize, Serialize};
 use spreadscope_physics::model::couplings::Couplings;
 use spreadscope_physics::model::spin_chain::SpinChain;
 use spreadscope_physics::model::spin_chain::dtwa::{self, BatchSums, DtwaOptions};
+use spreadscope_physics::model::spin_chain::typicality::{
+    self, TypicalityOptions, VectorRecord, vector_ids,
+};
+
+use crate::service::theory::SampledRun;
 
 use super::error::CliError;
 use super::long_csv::to_long_csv;
 
 /// The format name every shard file starts with.
-pub const FORMAT: &str = "spreadscope semiclassical shard";
+pub const FORMAT: &str = "spreadscope sampled-run shard";
 /// Version of the shard layout.
-pub const VERSION: u32 = 1;
+pub const VERSION: u32 = 2;
+
+/// The sampled method and its settings.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(tag = "name", rename_all = "snake_case", deny_unknown_fields)]
+pub enum ShardMethod {
+    Dtwa {
+        trajectories: usize,
+        step_scale: f64,
+    },
+    Typicality {
+        samples: usize,
+        step_tolerance: f64,
+        memory_limit_bytes: u64,
+    },
+}
+
+/// What one part computed.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(rename_all = "snake_case")]
+pub enum ShardParts {
+    /// DTWA: batch sums.
+    Batches(Vec<ShardBatch>),
+    /// Typicality: one record per (sector, vector).
+    Records(Vec<ShardRecord>),
+}
+
+/// What one random vector of one sector measured, `[time][site]`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct ShardRecord {
+    pub up: usize,
+    pub vector: usize,
+    pub ratios: Vec<Vec<f64>>,
+    pub propagation_error: f64,
+    pub applications: u64,
+}
 
 /// What every part of one run shares.
 #[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
@@ -39,9 +82,8 @@ pub struct ShardRun {
     pub delta: f64,
     pub source: usize,
     pub times: Vec<f64>,
-    pub trajectories: usize,
+    pub method: ShardMethod,
     pub seed: u64,
-    pub step_scale: f64,
     /// The metadata lines of the merged file.
     pub header: Vec<String>,
 }
@@ -67,7 +109,8 @@ pub struct ShardFile {
     /// Of how many parts.
     pub parts: usize,
     pub run: ShardRun,
-    pub batches: Vec<ShardBatch>,
+    /// What this part computed.
+    pub computed: ShardParts,
 }
 
 /// Parses `K/N` with 1 ≤ K ≤ N.
@@ -96,13 +139,12 @@ fn array(rows: &[Vec<f64>], shape: (usize, usize)) -> Option<Array2<f64>> {
     Array2::from_shape_vec(shape, rows.iter().flatten().copied().collect()).ok()
 }
 
-/// Computes part `k` of `n` of a semiclassical run.
+/// Computes part `k` of `n` of a sampled run.
 ///
 /// # Errors
 /// The run's refusals (bad source, times, options) as sentences.
 pub fn compute(
-    chain: &SpinChain,
-    options: &DtwaOptions,
+    run: &SampledRun,
     source: usize,
     times: &[f64],
     header: Vec<String>,
@@ -110,16 +152,73 @@ pub fn compute(
     progress: &(dyn Fn(f64) + Sync),
 ) -> Result<ShardFile, String> {
     let never = AtomicBool::new(false);
-    let batches = dtwa::batch_sums(
-        chain,
-        source,
-        times,
-        options,
-        &|b| b % n == k - 1,
-        progress,
-        &never,
-    )
-    .map_err(|e| e.to_string())?;
+    let (chain, method, seed, parts) = match run {
+        SampledRun::Dtwa(chain, options) => {
+            let batches = dtwa::batch_sums(
+                chain,
+                source,
+                times,
+                options,
+                &|b| b % n == k - 1,
+                progress,
+                &never,
+            )
+            .map_err(|e| e.to_string())?;
+            let parts = ShardParts::Batches(
+                batches
+                    .into_iter()
+                    .map(|b| ShardBatch {
+                        batch: b.batch,
+                        count: b.count,
+                        sum: rows(&b.sum),
+                        sum_squares: rows(&b.sum_squares),
+                    })
+                    .collect(),
+            );
+            let method = ShardMethod::Dtwa {
+                trajectories: options.trajectories,
+                step_scale: options.step_scale,
+            };
+            (chain, method, options.seed, parts)
+        }
+        SampledRun::Typicality(chain, options) => {
+            let mine: std::collections::HashSet<(usize, usize)> =
+                vector_ids(chain.sites(), options.samples)
+                    .into_iter()
+                    .enumerate()
+                    .filter(|(i, _)| i % n == k - 1)
+                    .map(|(_, id)| id)
+                    .collect();
+            let records = typicality::vector_records(
+                chain,
+                source,
+                times,
+                options,
+                &|up, vector| mine.contains(&(up, vector)),
+                progress,
+                &never,
+            )
+            .map_err(|e| e.to_string())?;
+            let parts = ShardParts::Records(
+                records
+                    .into_iter()
+                    .map(|r| ShardRecord {
+                        up: r.up,
+                        vector: r.vector,
+                        ratios: rows(&r.ratios),
+                        propagation_error: r.propagation_error,
+                        applications: r.applications,
+                    })
+                    .collect(),
+            );
+            let method = ShardMethod::Typicality {
+                samples: options.samples,
+                step_tolerance: options.step_tolerance,
+                memory_limit_bytes: options.memory_limit_bytes,
+            };
+            (chain, method, options.seed, parts)
+        }
+    };
     Ok(ShardFile {
         format: FORMAT.into(),
         version: VERSION,
@@ -130,20 +229,11 @@ pub fn compute(
             delta: chain.delta().unwrap_or(0.0),
             source,
             times: times.to_vec(),
-            trajectories: options.trajectories,
-            seed: options.seed,
-            step_scale: options.step_scale,
+            method,
+            seed,
             header,
         },
-        batches: batches
-            .into_iter()
-            .map(|b| ShardBatch {
-                batch: b.batch,
-                count: b.count,
-                sum: rows(&b.sum),
-                sum_squares: rows(&b.sum_squares),
-            })
-            .collect(),
+        computed: parts,
     })
 }
 
@@ -181,6 +271,24 @@ fn read(path: &Path) -> Result<ShardFile, CliError> {
         )));
     }
     Ok(file)
+}
+
+/// A part computed by another method than the run's first part.
+fn mixed(path: &Path) -> CliError {
+    CliError::Input(format!(
+        "{}: computed by another method than the other parts",
+        path.display()
+    ))
+}
+
+/// A part whose arrays do not have the run's shape.
+fn bad_shape(path: &Path, what: &str, index: usize, shape: (usize, usize)) -> CliError {
+    CliError::Input(format!(
+        "{}: {what} {index} is not {} times × {} sites",
+        path.display(),
+        shape.0,
+        shape.1
+    ))
 }
 
 /// Runs `merge`.
@@ -239,41 +347,70 @@ pub fn run(args: &MergeArgs) -> Result<(), CliError> {
     let chain =
         SpinChain::new(&couplings, run.delta).map_err(|e| CliError::Input(e.to_string()))?;
     let shape = (run.times.len(), n);
-    let mut batches = Vec::new();
-    for (file, path) in files.iter().zip(&args.shards) {
-        for b in &file.batches {
-            let (Some(sum), Some(sum_squares)) =
-                (array(&b.sum, shape), array(&b.sum_squares, shape))
-            else {
-                return Err(CliError::Input(format!(
-                    "{}: batch {} is not {} times × {n} sites",
-                    path.display(),
-                    b.batch,
-                    shape.0
-                )));
+    let map = match &run.method {
+        ShardMethod::Dtwa {
+            trajectories,
+            step_scale,
+        } => {
+            let mut batches = Vec::new();
+            for (file, path) in files.iter().zip(&args.shards) {
+                let ShardParts::Batches(parts) = &file.computed else {
+                    return Err(mixed(path));
+                };
+                for b in parts {
+                    let (Some(sum), Some(sum_squares)) =
+                        (array(&b.sum, shape), array(&b.sum_squares, shape))
+                    else {
+                        return Err(bad_shape(path, "batch", b.batch, shape));
+                    };
+                    batches.push(BatchSums {
+                        batch: b.batch,
+                        count: b.count,
+                        sum,
+                        sum_squares,
+                    });
+                }
+            }
+            let mut options = DtwaOptions::new(*trajectories, run.seed);
+            options.step_scale = *step_scale;
+            dtwa::reduce(&chain, run.source, &run.times, &options, batches)
+                .and_then(|r| r.to_correlation_map())
+        }
+        ShardMethod::Typicality {
+            samples,
+            step_tolerance,
+            memory_limit_bytes,
+        } => {
+            let mut records = Vec::new();
+            for (file, path) in files.iter().zip(&args.shards) {
+                let ShardParts::Records(parts) = &file.computed else {
+                    return Err(mixed(path));
+                };
+                for r in parts {
+                    let Some(ratios) = array(&r.ratios, shape) else {
+                        return Err(bad_shape(path, "vector", r.vector, shape));
+                    };
+                    records.push(VectorRecord {
+                        up: r.up,
+                        vector: r.vector,
+                        ratios,
+                        propagation_error: r.propagation_error,
+                        applications: r.applications,
+                    });
+                }
+            }
+            let options = TypicalityOptions {
+                step_tolerance: *step_tolerance,
+                memory_limit_bytes: *memory_limit_bytes,
+                ..TypicalityOptions::new(*samples, run.seed)
             };
-            batches.push(BatchSums {
-                batch: b.batch,
-                count: b.count,
-                sum,
-                sum_squares,
-            });
+            typicality::reduce(&chain, run.source, &run.times, &options, records)
+                .and_then(|r| r.to_correlation_map())
         }
     }
-    let mut options = DtwaOptions::new(run.trajectories, run.seed);
-    options.step_scale = run.step_scale;
-    let result = dtwa::reduce(&chain, run.source, &run.times, &options, batches)
-        .map_err(|e| CliError::Input(format!("merge: {e}")))?;
-    let map = result
-        .to_correlation_map()
-        .map_err(|e| CliError::Input(format!("merge: {e}")))?;
+    .map_err(|e| CliError::Input(format!("merge: {e}")))?;
     std::fs::write(&args.out, to_long_csv(&map, &run.header))
         .map_err(|e| CliError::Failure(format!("{}: {e}", args.out.display())))?;
-    eprintln!(
-        "merge: {} parts, {} trajectories → {}",
-        first.parts,
-        run.trajectories,
-        args.out.display()
-    );
+    eprintln!("merge: {} parts → {}", first.parts, args.out.display());
     Ok(())
 }

@@ -97,9 +97,10 @@ pub struct SimulateArgs {
     /// Trajectories of the semiclassical (DTWA) method.
     #[arg(long, default_value_t = crate::service::theory::DEFAULT_TRAJECTORIES)]
     pub trajectories: usize,
-    /// Compute only part K of N of a semiclassical run and write it as a
-    /// shard file (JSON) to `--out`; `spreadscope merge` joins the N parts
-    /// into exactly the file one run writes.
+    /// Compute only part K of N of a sampled run (DTWA trajectories or
+    /// typicality vectors) and write it as a shard file (JSON) to `--out`;
+    /// `spreadscope merge` joins the N parts into exactly the file one run
+    /// writes.
     #[arg(long, value_name = "K/N")]
     pub shard: Option<String>,
     /// Seed of every random number used.
@@ -210,18 +211,16 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     };
     if let Some(part) = &args.shard {
         let (k, n) = super::shard::parse_part(part).map_err(CliError::Input)?;
-        let (chain, options) = spec
-            .dtwa_run()
+        let run = spec
+            .sampled_run()
             .map_err(|e| CliError::Input(format!("--shard {part}: {e}")))?;
-        let file = super::shard::compute(
-            &chain,
-            &options,
-            source,
-            &times,
-            header(&spec.dtwa_words()),
-            (k, n),
-            &|f| bar.set_position((f * 1000.0) as u64),
-        )
+        let words = match run {
+            crate::service::theory::SampledRun::Dtwa(..) => spec.dtwa_words(),
+            crate::service::theory::SampledRun::Typicality(..) => spec.typicality_words(),
+        };
+        let file = super::shard::compute(&run, source, &times, header(&words), (k, n), &|f| {
+            bar.set_position((f * 1000.0) as u64)
+        })
         .map_err(|e| CliError::Input(format!("simulate: {e}")))?;
         bar.finish_and_clear();
         return super::shard::write(&file, &args.out);

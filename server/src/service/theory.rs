@@ -192,20 +192,29 @@ impl ModelSpec {
 }
 
 impl ModelSpec {
-    /// The chain and options of a semiclassical run, for runs split into
-    /// shards (see `shard.rs`).
+    /// The chain and options of a sampled run (DTWA or typicality), for
+    /// runs split into shards (see `cli/shard.rs`).
     ///
     /// # Errors
-    /// A spec that is not a spin chain computed by DTWA, or a bad chain.
-    pub fn dtwa_run(&self) -> Result<(SpinChain, DtwaOptions), String> {
-        if self.model != TheoryModel::SpinChain || self.resolved() != Resolved::Dtwa {
-            return Err(
-                "only semiclassical (DTWA) runs split into shards: use spin-chain with --method dtwa"
-                    .into(),
-            );
+    /// A spec that is not a spin chain computed by a sampled method, or a
+    /// bad chain.
+    pub fn sampled_run(&self) -> Result<SampledRun, String> {
+        let method = if self.model == TheoryModel::SpinChain {
+            self.resolved()
+        } else {
+            Resolved::Exact
+        };
+        if !matches!(method, Resolved::Dtwa | Resolved::Typicality) {
+            return Err("only sampled runs split into shards: use spin-chain with \
+                 --method dtwa or --method typicality"
+                .into());
         }
         let chain = SpinChain::new(&self.couplings()?, self.delta).map_err(|e| e.to_string())?;
-        Ok((chain, DtwaOptions::new(self.trajectories, self.seed)))
+        Ok(if method == Resolved::Dtwa {
+            SampledRun::Dtwa(chain, DtwaOptions::new(self.trajectories, self.seed))
+        } else {
+            SampledRun::Typicality(chain, TypicalityOptions::new(self.samples, self.seed))
+        })
     }
 
     /// How a semiclassical run is described in outputs.
@@ -216,6 +225,22 @@ impl ModelSpec {
             self.trajectories, self.seed
         )
     }
+
+    /// How a typicality run is described in outputs.
+    #[must_use]
+    pub fn typicality_words(&self) -> String {
+        format!(
+            "dynamical typicality, {} random vectors, seed {}",
+            self.samples, self.seed
+        )
+    }
+}
+
+/// A run by a sampled method, ready to be split into shards.
+#[derive(Debug)]
+pub enum SampledRun {
+    Dtwa(SpinChain, DtwaOptions),
+    Typicality(SpinChain, TypicalityOptions),
 }
 
 /// C(n, k) as a float.
@@ -302,13 +327,7 @@ pub fn model_map(
                     .correlations_typical_with(spec.source, times, &options, progress, cancel)
                     .map_err(|e| text(&e))?;
                 let map = result.to_correlation_map().map_err(|e| text(&e))?;
-                Ok((
-                    map,
-                    format!(
-                        "dynamical typicality, {} random vectors, seed {}",
-                        spec.samples, spec.seed
-                    ),
-                ))
+                Ok((map, spec.typicality_words()))
             }
             Resolved::Dtwa => {
                 let chain = SpinChain::new(&couplings, spec.delta).map_err(|e| text(&e))?;
