@@ -5,13 +5,10 @@
 
 use super::*;
 
-/// A complex amplitude; H is real, so its real and imaginary parts share the
-/// decoding of every sparse entry.
-#[derive(Debug, Clone, Copy, Default, PartialEq)]
-pub(super) struct Amp {
-    pub(super) re: f64,
-    pub(super) im: f64,
-}
+/// A complex amplitude (num-complex's `Complex64`: fields `re`, `im`); H is
+/// real, so its real and imaginary parts share the decoding of every sparse
+/// entry.
+pub(super) type Amp = num_complex::Complex64;
 
 /// The Hamiltonian of one sector, applied without being stored.
 ///
