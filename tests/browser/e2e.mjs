@@ -772,6 +772,40 @@ async function main() {
         assert(decay.xType === "log" && decay.yType === "log", `decay axes are ${decay.xType}/${decay.yType}`);
         shots.push(await sideShot(page, args.screenshot, "couplings"));
       });
+      await check("a measured 51 × 51 coupling matrix drives a spin-chain overlay at 51 sites, said before it runs", async () => {
+        // A power law 1/|i−j|^1.2 with a seeded ±5 % wobble standing in for a
+        // measured matrix (synthetic, made here).
+        let seed = 7;
+        const wobble = () => {
+          seed = (seed * 16807) % 2147483647;
+          return 0.95 + 0.1 * (seed / 2147483647);
+        };
+        const n = 51;
+        const m = Array.from({ length: n }, () => Array(n).fill(0));
+        for (let i = 0; i < n; i += 1) {
+          for (let j = i + 1; j < n; j += 1) m[i][j] = m[j][i] = wobble() / Math.pow(j - i, 1.2);
+        }
+        const file = path.join(work, "couplings-measured-51.csv");
+        fs.writeFileSync(file, m.map((row) => row.join(",")).join("\n") + "\n");
+        await page.click("#tab-couplings");
+        await page.setInputFiles("#couplings-input", file);
+        await page.locator("#couplings-status[data-kind='ok']").waitFor({ timeout: args.timeout });
+        await page.click("#desk-tab-theory");
+        await page.check('input[name="theory-model"][value="spin_chain"]');
+        await page.check("#theory-use-matrix");
+        await page.fill("#theory-trajectories", "32");
+        await page.waitForFunction(() => /semiclassical DTWA, 32 trajectories on 51 sites/.test(document.querySelector("#theory-plan")?.textContent ?? ""), undefined, { timeout: args.timeout });
+        await page.click("#theory-run");
+        await page.locator("#theory-status[data-kind='ok'], #theory-status[data-kind='error']").waitFor({ timeout: Math.max(args.timeout, 120000) });
+        const status = await page.locator("#theory-status").innerText();
+        assert(status.startsWith("Drawn"), `the theory panel says "${status}"`);
+        const summary = await page.locator("#theory-summary").innerText();
+        assert(summary.includes("from the coupling matrix") && summary.includes("51"), `the overlay summary says "${summary}"`);
+        await page.uncheck("#theory-use-matrix");
+        await page.fill("#theory-trajectories", "");
+        await page.check('input[name="theory-model"][value="lattice_walk"]');
+        await page.click("#theory-clear");
+      });
       await check("a ragged coupling matrix is refused with its line named", async () => {
         expectedFailures.push({ text: /Failed to load resource/, url: /\/couplings$/ });
         const file = path.join(work, "couplings-ragged.csv");
