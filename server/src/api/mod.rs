@@ -5,6 +5,7 @@
 //! Handlers are thin: parse the request, call the service, shape the answer.
 
 pub mod assets;
+mod estimators;
 mod lab;
 
 use std::convert::Infallible;
@@ -30,10 +31,8 @@ use crate::ingest::couplings::CouplingConvention;
 use crate::ingest::shots::ShotFormat;
 use crate::ingest::{Format, IngestOptions};
 use crate::service::exports::FitTable;
-use crate::service::fits::{FitRequest, Windows};
 use crate::service::log::PinRequest;
 use crate::service::shots::ShotOptions;
-use crate::service::theory::TheoryRequest;
 use crate::service::{CONVENTIONS, PROGRAM_VERSION, Service, ServiceError};
 
 /// Settings of the HTTP layer.
@@ -89,14 +88,20 @@ pub fn router(service: Service, config: &ApiConfig) -> Router {
             "/s/{token}/log/{entry}/residuals.csv",
             get(get_residuals_csv),
         )
-        .route("/s/{token}/datasets/{id}/fits", post(run_fit))
+        .route("/s/{token}/datasets/{id}/fits", post(estimators::run_fit))
         .route(
             "/s/{token}/datasets/{id}/collapse-quality",
-            get(collapse_quality),
+            get(estimators::collapse_quality),
         )
         .route("/s/{token}/jobs/{job}/cancel", post(cancel_job))
-        .route("/s/{token}/datasets/{id}/theory", post(run_theory))
-        .route("/s/{token}/scaling-function", get(scaling_function))
+        .route(
+            "/s/{token}/datasets/{id}/theory",
+            post(estimators::run_theory),
+        )
+        .route(
+            "/s/{token}/scaling-function",
+            get(estimators::scaling_function),
+        )
         .route("/s/{token}/report.html", get(get_report))
         .route("/s/{token}/archive", get(lab::export_archive))
         .route(
@@ -627,92 +632,6 @@ fn csv_download(body: String, file_name: &str) -> Response {
             .insert(header::CONTENT_DISPOSITION, value);
     }
     response
-}
-
-async fn run_fit(
-    State(service): State<Service>,
-    Path((token, id)): Path<(String, i64)>,
-    body: Bytes,
-) -> ApiResult<Json<Value>> {
-    let access = service.access(&token).await?;
-    let request: FitRequest = parse_json(&body, "fit request")?;
-    // Options the method does not read are refused by name.
-    let given: Vec<String> = serde_json::from_slice::<Value>(&body)
-        .ok()
-        .and_then(|v| {
-            v.get("options")?
-                .as_object()
-                .map(|o| o.keys().cloned().collect())
-        })
-        .unwrap_or_default();
-    request.method.check_given(&given)?;
-    // Identical requests share one computation and its cached result.
-    Ok(Json(json!(
-        *service.fit_shared(&access, id, request).await?
-    )))
-}
-
-#[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
-struct QualityQuery {
-    z: f64,
-    t_min: Option<f64>,
-    t_max: Option<f64>,
-    x_max: Option<i32>,
-}
-
-async fn collapse_quality(
-    State(service): State<Service>,
-    Path((token, id)): Path<(String, i64)>,
-    query: QueryResult<QualityQuery>,
-) -> ApiResult<Json<crate::service::quality::QualityAnswer>> {
-    let access = service.access(&token).await?;
-    let q = from_query(query)?;
-    let windows = Windows {
-        t_min: q.t_min,
-        t_max: q.t_max,
-        x_max: q.x_max,
-    };
-    Ok(Json(
-        service.collapse_quality(&access, id, windows, q.z).await?,
-    ))
-}
-
-async fn run_theory(
-    State(service): State<Service>,
-    Path((token, id)): Path<(String, i64)>,
-    body: Bytes,
-) -> ApiResult<Json<crate::service::theory::TheoryReply>> {
-    let access = service.access(&token).await?;
-    let request: TheoryRequest = parse_json(&body, "theory request")?;
-    Ok(Json(service.theory(&access, id, request).await?))
-}
-
-#[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
-struct ScalingQuery {
-    mu: f64,
-    #[serde(rename = "D")]
-    d: f64,
-    u_min: f64,
-    u_max: f64,
-    n: Option<usize>,
-}
-
-async fn scaling_function(
-    State(service): State<Service>,
-    Path(token): Path<String>,
-    query: QueryResult<ScalingQuery>,
-) -> ApiResult<Json<crate::service::theory::ScalingFunction>> {
-    service.access(&token).await?;
-    let q = from_query(query)?;
-    Ok(Json(service.scaling_function(
-        q.mu,
-        q.d,
-        q.u_min,
-        q.u_max,
-        q.n.unwrap_or(201),
-    )?))
 }
 
 async fn cancel_job(
