@@ -559,6 +559,63 @@ fn simulate_runs_long_chains_semiclassically_with_errors() {
     }
 }
 
+/// Runs `base` whole and in three shards, merges the shards in `order` and
+/// checks the merged file equals the whole run's byte for byte; returns the
+/// whole run's file and the shard files.
+fn shard_round_trip(
+    base: &[&str],
+    dir: &std::path::Path,
+    order: [usize; 3],
+) -> (std::path::PathBuf, Vec<std::path::PathBuf>) {
+    let whole = dir.join("whole.csv");
+    let out = binary()
+        .args(base)
+        .arg("--out")
+        .arg(&whole)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    let mut parts = Vec::new();
+    for k in 1..=3 {
+        let part = dir.join(format!("part-{k}.json"));
+        let out = binary()
+            .args(base)
+            .args(["--shard", &format!("{k}/3"), "--out"])
+            .arg(&part)
+            .output()
+            .expect("runs");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        parts.push(part);
+    }
+    let merged = dir.join("merged.csv");
+    let out = binary()
+        .arg("merge")
+        .args(order.map(|i| &parts[i]))
+        .arg("--out")
+        .arg(&merged)
+        .output()
+        .expect("runs");
+    assert!(
+        out.status.success(),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert_eq!(
+        std::fs::read(&merged).expect("merged"),
+        std::fs::read(&whole).expect("whole"),
+        "the merged file differs from the single run's"
+    );
+    (whole, parts)
+}
+
 #[test]
 fn shards_of_a_semiclassical_run_merge_into_exactly_the_file_of_one_run() {
     let dir = tempfile::tempdir().expect("temp dir");
@@ -580,53 +637,8 @@ fn shards_of_a_semiclassical_run_merge_into_exactly_the_file_of_one_run() {
         "--seed",
         "9",
     ];
-    let whole = dir.path().join("whole.csv");
-    let out = binary()
-        .args(base)
-        .arg("--out")
-        .arg(&whole)
-        .output()
-        .expect("runs");
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let mut parts = Vec::new();
-    for k in 1..=3 {
-        let part = dir.path().join(format!("part-{k}.json"));
-        let out = binary()
-            .args(base)
-            .args(["--shard", &format!("{k}/3"), "--out"])
-            .arg(&part)
-            .output()
-            .expect("runs");
-        assert!(
-            out.status.success(),
-            "{}",
-            String::from_utf8_lossy(&out.stderr)
-        );
-        parts.push(part);
-    }
-    let merged = dir.path().join("merged.csv");
     // Any order of the parts.
-    let out = binary()
-        .arg("merge")
-        .args([&parts[2], &parts[0], &parts[1]])
-        .arg("--out")
-        .arg(&merged)
-        .output()
-        .expect("runs");
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    assert_eq!(
-        std::fs::read(&merged).expect("merged"),
-        std::fs::read(&whole).expect("whole"),
-        "the merged file differs from the single run's"
-    );
+    let (whole, parts) = shard_round_trip(&base, dir.path(), [2, 0, 1]);
     // A missing part, a part given twice and a part of another run are refused.
     let refuse = |files: &[&std::path::PathBuf], says: &str| {
         let out = binary()
@@ -704,50 +716,5 @@ fn shards_of_a_typicality_run_merge_into_exactly_the_file_of_one_run() {
         "--seed",
         "4",
     ];
-    let whole = dir.path().join("whole.csv");
-    let out = binary()
-        .args(base)
-        .arg("--out")
-        .arg(&whole)
-        .output()
-        .expect("runs");
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    let mut parts = Vec::new();
-    for k in 1..=3 {
-        let part = dir.path().join(format!("t-{k}.json"));
-        let out = binary()
-            .args(base)
-            .args(["--shard", &format!("{k}/3"), "--out"])
-            .arg(&part)
-            .output()
-            .expect("runs");
-        assert!(
-            out.status.success(),
-            "{}",
-            String::from_utf8_lossy(&out.stderr)
-        );
-        parts.push(part);
-    }
-    let merged = dir.path().join("merged.csv");
-    let out = binary()
-        .arg("merge")
-        .args([&parts[1], &parts[2], &parts[0]])
-        .arg("--out")
-        .arg(&merged)
-        .output()
-        .expect("runs");
-    assert!(
-        out.status.success(),
-        "{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
-    assert_eq!(
-        std::fs::read(&merged).expect("merged"),
-        std::fs::read(&whole).expect("whole"),
-        "the merged file differs from the single run's"
-    );
+    shard_round_trip(&base, dir.path(), [1, 2, 0]);
 }

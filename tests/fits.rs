@@ -506,6 +506,15 @@ async fn profile_lattice_walk_and_analysis_methods_run_through_the_api() {
         (alpha - 1.1).abs() < 1e-6 && (gamma0 - 0.8).abs() < 1e-6,
         "α = {alpha}, γ0 = {gamma0}"
     );
+    // The curves drawn over the data are the fitted walk: on this exact walk
+    // map the residual vanishes to the fit's precision (self-consistent).
+    let worst = fit["overlay"]["residual"]["values"]
+        .as_array()
+        .expect("residual rows")
+        .iter()
+        .flat_map(|r| r.as_array().expect("row").iter().filter_map(Value::as_f64))
+        .fold(0.0f64, |w, v| w.max(v.abs()));
+    assert!(worst < 1e-6, "largest residual of the walk overlay {worst}");
 
     let (status, all) = send_json(
         &app.router,

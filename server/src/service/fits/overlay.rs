@@ -50,28 +50,18 @@ pub(super) fn overlay(
             let from: Vec<ndarray::Array2<f64>> = (average.first..=average.last)
                 .map(|j| walk.propagate(j, map.times()).ok())
                 .collect::<Option<_>>()?;
-            let sites = walk_fit.sites as i64;
-            let mean_at = |ti: usize, x: i32| -> Option<f64> {
-                let (mut sum, mut count) = (0.0, 0u32);
-                for (q, j) in (average.first..=average.last).enumerate() {
-                    let i = j as i64 + i64::from(x);
-                    if (0..sites).contains(&i) {
-                        sum += from[q][(ti, i as usize)];
-                        count += 1;
-                    }
-                }
-                (count > 0).then(|| sum / f64::from(count))
-            };
             let model: Option<Vec<Vec<f64>>> = (0..map.n_times())
                 .map(|ti| {
                     map.offsets()
                         .iter()
                         .map(|&x| {
-                            if average.symmetrised {
-                                Some(0.5 * (mean_at(ti, x)? + mean_at(ti, -x)?))
-                            } else {
-                                mean_at(ti, x)
-                            }
+                            let terms = average.terms(walk_fit.sites, x);
+                            (!terms.is_empty()).then(|| {
+                                terms
+                                    .iter()
+                                    .map(|&(i, j, w)| w * from[j - average.first][(ti, i)])
+                                    .sum()
+                            })
                         })
                         .collect()
                 })

@@ -184,9 +184,12 @@ impl SourceAverage {
         })
     }
 
-    /// The (site, source, weight) terms whose sum is the map at offset x;
-    /// empty when no source of the window reaches x.
-    fn terms(self, sites: usize, x: i32) -> Vec<(usize, usize, f64)> {
+    /// The (site, source, weight) terms whose sum is the map at offset x:
+    /// C(x,t) = Σ weight · P_{site ← source}(t); empty when no source of the
+    /// window reaches x. The fit and the fitted curves drawn over the data
+    /// both form the model from these.
+    #[must_use]
+    pub fn terms(self, sites: usize, x: i32) -> Vec<(usize, usize, f64)> {
         let side = |x: i32, share: f64| {
             let pairs: Vec<(usize, usize)> = self.pairs(sites, x).collect();
             let w = share / pairs.len().max(1) as f64;

@@ -22,6 +22,32 @@ fn noisy_walk_map(
     CorrelationMap::complete(offsets, times.to_vec(), values, Some(errors)).expect("valid map")
 }
 
+/// The analytic Jacobian of `problem` at `params` against central
+/// differences of its residuals, which are accurate to ~h²·P‴ ≈ 1e-7 of the
+/// residual scale (1/σ = 1e3) with h = 1e-5 of each parameter.
+fn assert_jacobian_matches_differences(problem: &WalkProblem, params: [f64; 2], case: &str) {
+    let m = problem.y.len();
+    let mut jac = vec![0.0; 2 * m];
+    assert!(problem.jacobian(&params, &mut jac));
+    for j in 0..2 {
+        let h = 1e-5 * params[j];
+        let (mut up, mut down) = (params, params);
+        up[j] += h;
+        down[j] -= h;
+        let (mut r_up, mut r_down) = (vec![0.0; m], vec![0.0; m]);
+        problem.residuals(&up, &mut r_up);
+        problem.residuals(&down, &mut r_down);
+        for k in 0..m {
+            let numeric = (r_up[k] - r_down[k]) / (2.0 * h);
+            let analytic = jac[2 * k + j];
+            assert!(
+                close(analytic, numeric, 1e-6, 1e-4),
+                "{case}, param {j}, point {k}: analytic {analytic} vs numeric {numeric}"
+            );
+        }
+    }
+}
+
 #[test]
 fn model_matches_the_lattice_walk_model_and_derivatives_match_differences() {
     // The fit's own propagation must reproduce `LatticeWalk::propagate`
@@ -48,29 +74,7 @@ fn model_matches_the_lattice_walk_model_and_derivatives_match_differences() {
             );
         }
     }
-    let m = problem.y.len();
-    let params = [gamma0, alpha];
-    let mut jac = vec![0.0; 2 * m];
-    assert!(problem.jacobian(&params, &mut jac));
-    for j in 0..2 {
-        let h = 1e-5 * params[j];
-        let (mut up, mut down) = (params, params);
-        up[j] += h;
-        down[j] -= h;
-        let (mut r_up, mut r_down) = (vec![0.0; m], vec![0.0; m]);
-        problem.residuals(&up, &mut r_up);
-        problem.residuals(&down, &mut r_down);
-        for k in 0..m {
-            let numeric = (r_up[k] - r_down[k]) / (2.0 * h);
-            let analytic = jac[2 * k + j];
-            // Central differences are accurate to ~h²·P''' ≈ 1e-7 of the
-            // residual scale (1/σ = 1e3) here.
-            assert!(
-                close(analytic, numeric, 1e-6, 1e-4),
-                "param {j}, point {k}: analytic {analytic} vs numeric {numeric}"
-            );
-        }
-    }
+    assert_jacobian_matches_differences(&problem, [gamma0, alpha], "single source");
 }
 
 /// The walk from every source of `average`, averaged per offset over the
@@ -144,26 +148,7 @@ fn averaged_model_matches_the_walk_averaged_by_hand_and_derivatives_match_differ
         assert!(worst < 1e-13, "symmetrised {symmetrised}: {worst}");
         let map = noisy_averaged_walk_map(sites, average, truth, &times, 1e-3, 2);
         let problem = build_problem(&map, sites, average).expect("valid");
-        let m = problem.y.len();
-        let mut jac = vec![0.0; 2 * m];
-        assert!(problem.jacobian(&truth, &mut jac));
-        for j in 0..2 {
-            let h = 1e-5 * truth[j];
-            let (mut up, mut down) = (truth, truth);
-            up[j] += h;
-            down[j] -= h;
-            let (mut r_up, mut r_down) = (vec![0.0; m], vec![0.0; m]);
-            problem.residuals(&up, &mut r_up);
-            problem.residuals(&down, &mut r_down);
-            for k in 0..m {
-                let numeric = (r_up[k] - r_down[k]) / (2.0 * h);
-                assert!(
-                    close(jac[2 * k + j], numeric, 1e-6, 1e-4),
-                    "symmetrised {symmetrised}, param {j}, point {k}: {} vs {numeric}",
-                    jac[2 * k + j]
-                );
-            }
-        }
+        assert_jacobian_matches_differences(&problem, truth, &format!("symmetrised {symmetrised}"));
     }
 }
 
