@@ -206,7 +206,7 @@ function redrawForZ(since) {
   if (figure === null || !isVisible("collapse")) return;
   window.clearTimeout(modelTimer);
   figure
-    .setZ(state.z)
+    .setZ(state.z, { live: true })
     .then(() => {
       const end = performance.now();
       // Event time stamps share performance.now()'s clock; guard against a
@@ -511,15 +511,28 @@ export function redo() {
 }
 
 /**
- * Sets z from the dial or the field while it moves.
+ * A move of z waiting for the next frame: the time stamp of the oldest
+ * input it stands for, and the frame request (0: none).
+ */
+const waiting = { since: 0, frame: 0 };
+
+/**
+ * Sets z from the dial or the field while it moves. A drag sends inputs
+ * faster than a figure can be redrawn; they are coalesced so that each frame
+ * draws only the newest z, once, and asks the server once.
  * @param {number} z
  * @param {number} since event time stamp
  */
 function moveZ(z, since) {
   state.z = clamp(z, Z_MIN, Z_MAX);
-  redrawForZ(since);
-  requestQuality();
-  requestModel();
+  if (waiting.frame !== 0) return;
+  waiting.since = since;
+  waiting.frame = window.requestAnimationFrame(() => {
+    waiting.frame = 0;
+    redrawForZ(waiting.since);
+    requestQuality();
+    requestModel();
+  });
 }
 
 /**

@@ -74,6 +74,7 @@ export function drawMap(el, input) {
     tickfont: { size: fs(16) },
     thickness: 20,
     outlinewidth: 0,
+    ticklabeloverflow: "allow",
     exponentformat: "power",
   };
   /** @type {PlotObject} */
@@ -570,6 +571,7 @@ export function drawDifferenceMap(el, input) {
       tickfont: { size: fs(15) },
       thickness: 20,
       outlinewidth: 0,
+      ticklabeloverflow: "allow",
       exponentformat: "power",
     },
     hovertemplate: `x = %{x} sites<br>t = %{y:.4~g} ${unit}<br>${plain(input.label)} = %{z:.3~g}<extra></extra>`,

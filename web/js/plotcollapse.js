@@ -33,6 +33,14 @@ import {
 
 /** Most colour bands of the collapse; see CollapseFigure. */
 const COLLAPSE_BANDS = 12;
+/** How long z must rest before a dragged figure is drawn by plotly again, ms. */
+const SETTLE_MS = 180;
+/**
+ * While dragging, the ranges are refitted when the data leave them or fill
+ * less than this share of them; a refit leaves this much room on each side.
+ */
+const LIVE_FILL = 0.55;
+const LIVE_SLACK = 0.12;
 
 /**
  * The scaling collapse y = t^{1/z} C against u = x / t^{1/z}, the slices
@@ -51,6 +59,17 @@ const COLLAPSE_BANDS = 12;
  * the data's extent rather than by plotly's autorange, and the margins are
  * fixed, so a redraw never needs a second layout pass for new tick label
  * widths. A range the person zoomed to is kept until a double click.
+ *
+ * While the slider is dragged (`setZ(z, {live: true})`) even that is too
+ * slow: every `Plotly.react` with new data is a full replot (defaults, calc,
+ * axes, colour bar, legend, every trace), 40–60 ms on a shared 2-core
+ * machine. So a drag draws the same rescaled slices, in the same colours,
+ * on a canvas laid over plotly's plot area, and asks plotly only for new
+ * axis ranges, and only when the data leave the shown ranges or shrink to
+ * well inside them (`Plotly.relayout` of ranges alone skips defaults and
+ * calc). Once z rests for SETTLE_MS the canvas is cleared and the figure is
+ * drawn by plotly again, with hovering, tight ranges and the model trace;
+ * an export always sees that figure.
  */
 export class CollapseFigure {
   /** @param {HTMLElement} el */
@@ -81,6 +100,15 @@ export class CollapseFigure {
     /** Whether the person zoomed or panned; then the ranges are theirs. */
     this.userRange = false;
     this.hooked = false;
+    /** Whether a drag is being drawn on the canvas (see the class notes). */
+    this.live = false;
+    /** @type {HTMLCanvasElement | null} */
+    this.canvas = null;
+    this.settleTimer = 0;
+    /** Relayouts of our own in progress (their events are not a zoom). */
+    this.ownRelayout = 0;
+    /** Whether a model curve is set. */
+    this.hasModel = false;
   }
 
   /**
@@ -190,6 +218,7 @@ export class CollapseFigure {
           tickfont: { size: fs(15) },
           thickness: 18,
           outlinewidth: 0,
+          ticklabeloverflow: "allow",
           len: 0.9,
           ...(logTime && tickvals.length >= 2 ? { tickmode: "array", tickvals, ticktext } : {}),
         },
@@ -220,11 +249,13 @@ export class CollapseFigure {
   }
 
   /**
-   * Rescales every slice for exponent `z` and redraws.
+   * Rescales every slice for exponent `z` and redraws: with plotly, or,
+   * with `live` (the slider is being dragged), on the canvas.
    * @param {number} z
+   * @param {{live?: boolean}} [options]
    * @returns {Promise<HTMLElement>}
    */
-  setZ(z) {
+  setZ(z, options = {}) {
     this.z = z;
     const inv = 1 / z;
     const x = this.x;
@@ -239,7 +270,141 @@ export class CollapseFigure {
         y[start + j] = (c[j] ?? Number.NaN) * a;
       }
     }
-    return this.redraw();
+    return options.live ? this.drawLive() : this.settle();
+  }
+
+  /**
+   * Draws the rescaled slices on the canvas during a drag, refitting the
+   * axis ranges only when needed, and schedules the plotly figure for when z
+   * rests.
+   * @returns {Promise<HTMLElement>}
+   */
+  async drawLive() {
+    window.clearTimeout(this.settleTimer);
+    this.settleTimer = window.setTimeout(() => {
+      this.settle().catch(() => undefined);
+    }, SETTLE_MS);
+    if (!this.live) {
+      // The slices and the model leave plotly's figure for the canvas.
+      this.live = true;
+      await this.react();
+    }
+    const drawn = /** @type {{layout?: Record<string, any>}} */ (/** @type {unknown} */ (this.el)).layout;
+    const shown = { x: drawn?.xaxis?.range, y: drawn?.yaxis?.range };
+    if (!this.userRange) {
+      const want = this.ranges();
+      /** @type {Record<string, [number, number]>} */
+      const update = {};
+      for (const axis of /** @type {Array<"x" | "y">} */ (["x", "y"])) {
+        const now = shown[axis];
+        const [lo, hi] = want[axis];
+        const fits = Array.isArray(now) && lo >= now[0] && hi <= now[1] && hi - lo >= LIVE_FILL * (now[1] - now[0]);
+        if (!fits) {
+          const room = LIVE_SLACK * (hi - lo);
+          update[`${axis}axis.range`] = [lo - room, hi + room];
+        }
+      }
+      if (Object.keys(update).length > 0) {
+        const xa = /** @type {PlotObject} */ (this.layout.xaxis);
+        const ya = /** @type {PlotObject} */ (this.layout.yaxis);
+        if (update["xaxis.range"]) xa.range = update["xaxis.range"];
+        if (update["yaxis.range"]) ya.range = update["yaxis.range"];
+        // Not the person's zoom: the relayout hook must not take it for one.
+        this.ownRelayout += 1;
+        try {
+          await Plotly.relayout(this.el, update);
+        } finally {
+          this.ownRelayout -= 1;
+        }
+      }
+    }
+    // A settle or a new figure may have come while waiting.
+    if (this.live) this.paint();
+    return this.el;
+  }
+
+  /**
+   * Paints the slices and the model curve on a canvas over the plot area,
+   * with plotly's current axis ranges; false when the figure is not drawn.
+   * @returns {boolean}
+   */
+  paint() {
+    const gd = /** @type {any} */ (this.el);
+    const size = gd._fullLayout?._size;
+    const xr = gd.layout?.xaxis?.range;
+    const yr = gd.layout?.yaxis?.range;
+    const holder = this.el.querySelector(".svg-container");
+    if (!size || !Array.isArray(xr) || !Array.isArray(yr) || !(holder instanceof HTMLElement)) return false;
+    let canvas = this.canvas;
+    if (canvas === null || canvas.parentElement !== holder) {
+      canvas = document.createElement("canvas");
+      canvas.className = "collapse-live";
+      canvas.setAttribute("aria-hidden", "true");
+      canvas.style.position = "absolute";
+      canvas.style.pointerEvents = "none";
+      // Above the paper and the traces, below plotly's top layer (hover, legend of the settled figure).
+      holder.insertBefore(canvas, holder.children[1] ?? null);
+      this.canvas = canvas;
+    }
+    const ratio = window.devicePixelRatio || 1;
+    const w = Math.max(1, Math.round(size.w));
+    const h = Math.max(1, Math.round(size.h));
+    canvas.style.left = `${size.l}px`;
+    canvas.style.top = `${size.t}px`;
+    canvas.style.width = `${w}px`;
+    canvas.style.height = `${h}px`;
+    if (canvas.width !== Math.round(w * ratio) || canvas.height !== Math.round(h * ratio)) {
+      canvas.width = Math.round(w * ratio);
+      canvas.height = Math.round(h * ratio);
+    }
+    canvas.hidden = false;
+    const ctx = canvas.getContext("2d");
+    if (ctx === null) return false;
+    ctx.setTransform(ratio, 0, 0, ratio, 0, 0);
+    ctx.clearRect(0, 0, w, h);
+    const logY = this.yScale === "log";
+    const [x0, x1] = [Number(xr[0]), Number(xr[1])];
+    const [y0, y1] = [Number(yr[0]), Number(yr[1])];
+    const sx = w / (x1 - x0);
+    const sy = h / (y1 - y0);
+    const below = y0 - (y1 - y0);
+    /**
+     * @param {ArrayLike<number>} us
+     * @param {ArrayLike<number>} ys
+     */
+    const trace = (us, ys) => {
+      ctx.beginPath();
+      let pen = false;
+      for (let k = 0; k < us.length; k += 1) {
+        const u = us[k] ?? Number.NaN;
+        const raw = ys[k] ?? Number.NaN;
+        // As plotly draws them, values ≤ 0 on a log axis drop below its foot.
+        const v = logY ? (raw > 0 ? Math.log10(raw) : raw === raw ? below : Number.NaN) : raw;
+        if (!(u === u) || !(v === v)) {
+          pen = false;
+          continue;
+        }
+        const px = (u - x0) * sx;
+        const py = h - (v - y0) * sy;
+        if (pen) ctx.lineTo(px, py);
+        else ctx.moveTo(px, py);
+        pen = true;
+      }
+      ctx.stroke();
+    };
+    ctx.lineJoin = "round";
+    ctx.lineWidth = 2;
+    for (let b = 0; b < this.u.length; b += 1) {
+      const line = /** @type {{color?: string} | undefined} */ ((/** @type {PlotObject | undefined} */ (this.traces[b]))?.line);
+      ctx.strokeStyle = line?.color ?? INK;
+      trace(/** @type {Float64Array} */ (this.u[b]), /** @type {Float64Array} */ (this.y[b]));
+    }
+    if (this.hasModel && Array.isArray(this.model.x) && Array.isArray(this.model.y)) {
+      ctx.lineWidth = 4;
+      ctx.strokeStyle = INK;
+      trace(/** @type {number[]} */ (this.model.x), /** @type {number[]} */ (this.model.y));
+    }
+    return true;
   }
 
   /**
@@ -247,12 +412,13 @@ export class CollapseFigure {
    * @param {{u: number[], f: number[], label: string} | null} curve
    */
   setModel(curve) {
+    this.hasModel = curve !== null;
     if (curve === null) {
       this.model.visible = false;
       this.model.x = [];
       this.model.y = [];
     } else {
-      this.model.visible = true;
+      this.model.visible = !this.live;
       this.model.x = curve.u;
       this.model.y = curve.f;
       this.model.name = curve.label;
@@ -332,8 +498,39 @@ export class CollapseFigure {
     return { x: [ulo - padU, uhi + padU], y: [lowest - pad, yhi + pad] };
   }
 
-  /** @returns {Promise<HTMLElement>} */
+  /**
+   * Draws the whole figure with plotly (the slices back from the canvas,
+   * tight ranges); during a drag, only repaints the canvas.
+   * @returns {Promise<HTMLElement>}
+   */
   redraw() {
+    if (this.live && this.settleTimer !== 0 && this.paint()) return Promise.resolve(this.el);
+    return this.settle();
+  }
+
+  /**
+   * Ends a drag, if one is drawn, and draws the whole figure with plotly.
+   * @returns {Promise<HTMLElement>}
+   */
+  settle() {
+    window.clearTimeout(this.settleTimer);
+    this.settleTimer = 0;
+    this.live = false;
+    if (this.canvas !== null) this.canvas.hidden = true;
+    return this.react();
+  }
+
+  /**
+   * One `Plotly.react` of the figure as it stands; in a drag the slices and
+   * the model are hidden (the canvas draws them).
+   * @returns {Promise<HTMLElement>}
+   */
+  react() {
+    for (let b = 0; b < this.u.length; b += 1) {
+      const tr = this.traces[b];
+      if (tr) tr.visible = !this.live;
+    }
+    this.model.visible = this.hasModel && !this.live;
     // The arrays were changed in place; a new data revision tells Plotly so.
     this.revision += 1;
     this.layout.datarevision = this.revision;
@@ -352,7 +549,7 @@ export class CollapseFigure {
       if (!this.hooked) {
         this.hooked = true;
         /** @type {PlotlyElement} */ (/** @type {unknown} */ (el)).on("plotly_relayout", (/** @type {any} */ ev) => {
-          if (!ev || typeof ev !== "object") return;
+          if (!ev || typeof ev !== "object" || this.ownRelayout > 0) return;
           const keys = Object.keys(ev);
           if (keys.some((k) => k.endsWith("autorange"))) this.userRange = false;
           else if (keys.some((k) => k.startsWith("xaxis.range") || k.startsWith("yaxis.range"))) this.userRange = true;

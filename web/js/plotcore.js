@@ -70,6 +70,10 @@ export function axis(title, type, lengthPx) {
     tickcolor: INK,
     ticklen: 6,
     automargin: true,
+    // Plotly's default ("hide past div") measures every tick label again
+    // for each label drawn, which made a third of each collapse redraw; the
+    // margins here already hold the labels.
+    ticklabeloverflow: "allow",
     exponentformat: "power",
     ...(type === "log" ? logTicks(lengthPx) : {}),
   };

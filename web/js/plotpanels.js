@@ -151,6 +151,7 @@ export function drawSiteMap(el, input) {
       tickfont: { size: fs(16) },
       thickness: 20,
       outlinewidth: 0,
+      ticklabeloverflow: "allow",
       exponentformat: "power",
     },
     hoverongaps: false,
@@ -248,7 +249,7 @@ export function drawCouplingMatrix(el, input) {
     z,
     customdata: input.matrix,
     colorscale: mapColourScale(),
-    colorbar: { title: { text: "log₁₀ |J<sub>ij</sub>|", side: "right", font: { size: fs(18) } }, tickfont: { size: fs(16) }, thickness: 20, outlinewidth: 0 },
+    colorbar: { title: { text: "log₁₀ |J<sub>ij</sub>|", side: "right", font: { size: fs(18) } }, tickfont: { size: fs(16) }, thickness: 20, outlinewidth: 0, ticklabeloverflow: "allow" },
     hoverongaps: false,
     hovertemplate: "i = %{y}, j = %{x}<br>J = %{customdata:.4~g}<extra></extra>",
   };
