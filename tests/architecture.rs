@@ -556,3 +556,62 @@ fn the_circle_check_finds_a_planted_circle() {
     );
     assert!(find_cycle(&graph[..2]).is_none());
 }
+
+/// The relative module paths (`./x.js`) a JavaScript module imports or
+/// re-exports from.
+fn js_imports(text: &str) -> Vec<String> {
+    let mut found = Vec::new();
+    let mut rest = text;
+    while let Some(at) = rest.find("from \"./") {
+        let tail = &rest[at + "from \"./".len()..];
+        let Some(end) = tail.find('"') else { break };
+        found.push(tail[..end].to_string());
+        rest = &tail[end..];
+    }
+    found
+}
+
+/// The dashboard page lists every module `app.js` reaches as a
+/// `modulepreload`, so that the browser fetches them all at once; a module
+/// added without its line would be fetched a level later, one left in the
+/// list after it is gone would cost a useless request.
+#[test]
+fn the_page_preloads_exactly_the_modules_the_app_imports() {
+    let js = repo_path("web/js");
+    let mut reached: Vec<String> = Vec::new();
+    let mut todo = vec!["app.js".to_string()];
+    while let Some(module) = todo.pop() {
+        if reached.contains(&module) {
+            continue;
+        }
+        let text = fs::read_to_string(js.join(&module))
+            .unwrap_or_else(|e| panic!("web/js/{module} is imported but cannot be read: {e}"));
+        todo.extend(js_imports(&text));
+        reached.push(module);
+    }
+    reached.retain(|m| m != "app.js");
+    reached.sort();
+    let page = fs::read_to_string(repo_path("web/index.html")).expect("index.html");
+    let marker = "<link rel=\"modulepreload\" href=\"%ASSETS%/js/";
+    let mut preloaded: Vec<String> = page
+        .match_indices(marker)
+        .filter_map(|(at, _)| {
+            let tail = &page[at + marker.len()..];
+            tail.find('"').map(|end| tail[..end].to_string())
+        })
+        .collect();
+    preloaded.sort();
+    let missing: Vec<&String> = reached.iter().filter(|m| !preloaded.contains(m)).collect();
+    let extra: Vec<&String> = preloaded.iter().filter(|m| !reached.contains(m)).collect();
+    assert!(
+        missing.is_empty() && extra.is_empty(),
+        "web/index.html: modulepreload lines missing for {missing:?}, not imported by app.js: {extra:?}"
+    );
+    assert!(reached.len() > 10, "only {} modules found", reached.len());
+}
+
+#[test]
+fn the_import_reader_sees_imports_and_re_exports() {
+    let text = "import { a } from \"./a.js\";\nimport {\n  b,\n} from \"./b.js\";\nexport { c } from \"./c.js\";\nconst s = \"from\";\n";
+    assert_eq!(js_imports(text), vec!["a.js", "b.js", "c.js"]);
+}

@@ -20,7 +20,7 @@ import { renderSession, setLiveState, wireCopyButtons } from "./header.js";
 import { wireLog } from "./log.js";
 import { fillMetaForm, wireMetaForm } from "./metaform.js";
 import { formatNumber } from "./format.js";
-import { plottingAvailable } from "./plot.js";
+import { loadPlotting } from "./plot.js";
 import { largeText, setLargeText } from "./prefs.js";
 import { applyTextScale, wirePresentation } from "./present.js";
 import { wireResiduals } from "./residuals.js";
@@ -45,6 +45,11 @@ const app = {
   selectedId: null,
   /** Counts detail requests so that a slow, stale answer never overwrites a newer one. */
   loadSeq: 0,
+  /**
+   * The first dataset's detail, asked for while the page was still loading.
+   * @type {{id: string, detail: Promise<DatasetDetail>} | null}
+   */
+  early: null,
 };
 
 /**
@@ -167,8 +172,10 @@ async function select(id, options = {}) {
   renderList();
   byId("meta-panel", HTMLElement).hidden = !app.canEdit;
   const seq = ++app.loadSeq;
+  const early = app.early;
+  app.early = null;
   try {
-    const detail = await api.dataset(id);
+    const detail = await (early !== null && early.id === id ? early.detail : api.dataset(id));
     if (seq !== app.loadSeq) return;
     renderFacts(detail);
     setWindowTimeUnit(detail.meta.time_unit);
@@ -185,12 +192,25 @@ async function select(id, options = {}) {
   }
 }
 
-/** Reloads the dataset list and keeps (or makes) a selection. */
-async function refreshList() {
+/**
+ * The dataset the page opens on: the one the address names, else the first.
+ * @param {string[]} ids
+ * @returns {string | null}
+ */
+function firstChoice(ids) {
+  const wanted = idFromHash();
+  return wanted !== null && ids.includes(wanted) ? wanted : (ids[0] ?? null);
+}
+
+/**
+ * Reloads the dataset list and keeps (or makes) a selection.
+ * @param {Promise<DatasetSummary[]>} [asked] the list, when already asked for
+ */
+async function refreshList(asked) {
   const api = app.api;
   if (api === null) return;
   try {
-    app.datasets = await api.datasets();
+    app.datasets = await (asked ?? api.datasets());
   } catch (e) {
     fatal(`Could not load the datasets: ${describe(e)}`);
     return;
@@ -200,8 +220,7 @@ async function refreshList() {
     renderList();
     return;
   }
-  const wanted = idFromHash();
-  const first = wanted !== null && ids.includes(wanted) ? wanted : (ids[0] ?? null);
+  const first = firstChoice(ids);
   if (first === null) {
     app.selectedId = null;
     renderList();
@@ -286,6 +305,22 @@ function followAddress() {
 }
 
 async function main() {
+  // Everything a first figure needs is asked for at once: the plotting
+  // library, the session, the dataset list and the first dataset; the
+  // library is waited for only before anything is drawn.
+  const plotting = loadPlotting();
+  const token = tokenFromLocation(window.location);
+  const api = new SessionApi(token);
+  app.api = api;
+  const asked = { session: api.session(), datasets: api.datasets() };
+  // Their failures are reported where they are awaited, below.
+  asked.datasets
+    .then((list) => {
+      const first = firstChoice(list.map((d) => String(d.id)));
+      if (first !== null && app.selectedId === null) app.early = { id: first, detail: api.dataset(first) };
+      app.early?.detail.catch(() => undefined);
+    })
+    .catch(() => undefined);
   const initial = readViewState();
   wireCopyButtons();
   wireLargeText();
@@ -294,14 +329,8 @@ async function main() {
   wireWindows();
   wireViews();
   wirePresentation({ stepDataset });
-  if (!plottingAvailable()) {
-    fatal("The plotting library did not load, so no plot can be drawn. Reload the page; if it persists, the server's assets are incomplete.");
-  }
-  const token = tokenFromLocation(window.location);
-  const api = new SessionApi(token);
-  app.api = api;
   try {
-    const session = await api.session();
+    const session = await asked.session;
     renderSession(session);
     app.canEdit = session.can_edit;
   } catch (e) {
@@ -317,6 +346,11 @@ async function main() {
   }
   byId("upload-panel", HTMLElement).hidden = !app.canEdit;
   document.body.dataset.access = app.canEdit ? "edit" : "view";
+  try {
+    await plotting;
+  } catch (e) {
+    fatal(`No plot can be drawn: ${describe(e)}. Reload the page; if it persists, the server's assets are incomplete.`);
+  }
   wireFitRunner(api);
   wireCollapse(api, { z: initial.z, D: initial.D });
   wireResiduals();
@@ -341,7 +375,7 @@ async function main() {
     });
   }
   followEvents();
-  await refreshList();
+  await refreshList(asked.datasets);
   // Back and Forward between pushed entries fire popstate; a fragment typed
   // into the address bar fires hashchange. Both lead to the same place.
   window.addEventListener("popstate", followAddress);

@@ -41,7 +41,7 @@ import {
 /** @typedef {import("./plotcore.js").WindowMarks} WindowMarks */
 
 
-export { plottingAvailable, setTextScale } from "./plotcore.js";
+export { loadPlotting, plottingAvailable, setTextScale } from "./plotcore.js";
 export { CollapseFigure } from "./plotcollapse.js";
 export { drawComparison, drawCouplingDecay, drawCouplingMatrix, drawSiteMap, drawSiteSumRule } from "./plotpanels.js";
 

@@ -48,6 +48,35 @@ export function plottingAvailable() {
   return typeof Plotly !== "undefined";
 }
 
+/** The vendored plotting library, next to this module's folder. */
+const LIBRARY = new URL("../vendor/plotly/plotly-scatter-heatmap.min.js", import.meta.url).href;
+
+/** @type {Promise<void> | null} */
+let loading = null;
+
+/**
+ * Loads the vendored plotting library once, as an ordinary script added to
+ * the page (the page's head preloads the file). The page asks for its data
+ * first and only then waits for this: evaluating the library is the longest
+ * single piece of a first load, and the requests run meanwhile.
+ * @returns {Promise<void>} settles when `Plotly` is defined, or fails
+ */
+export function loadPlotting() {
+  if (loading !== null) return loading;
+  loading = new Promise((resolve, reject) => {
+    if (plottingAvailable()) {
+      resolve();
+      return;
+    }
+    const script = document.createElement("script");
+    script.src = LIBRARY;
+    script.addEventListener("load", () => (plottingAvailable() ? resolve() : reject(new Error("the plotting library ran but defined nothing"))));
+    script.addEventListener("error", () => reject(new Error("the plotting library could not be loaded")));
+    document.head.append(script);
+  });
+  return loading;
+}
+
 /**
  * An axis in the house style.
  * @param {string} title axis title including its unit

@@ -1,6 +1,7 @@
-// The part of the vendored plotly.js API (web/vendor/plotly, v4.1.2) that
-// web/js/plot.js calls. plotly.min.js is a classic script defining the global
-// `Plotly`; only plot.js may touch it. Traces, layouts and configs are plain
+// The part of the vendored plotly.js API (web/vendor/plotly, v4.1.1) that
+// the figure modules call. plotly-scatter-heatmap.min.js is a classic script
+// defining the global `Plotly` (loaded by plotcore.js's loadPlotting); only the
+// figure modules (plot.js, plotcore.js, plotcollapse.js, plotpanels.js) touch it. Traces, layouts and configs are plain
 // objects built in plot.js, so they are typed loosely here on purpose: the
 // declaration checks that the entry points are called with the right
 // arguments, not plotly's whole attribute schema.

@@ -687,7 +687,7 @@ async fn get_report(
     Path(token): Path<String>,
 ) -> ApiResult<Response> {
     let access = service.access(&token).await?;
-    let library = assets::text("vendor/plotly/plotly-cartesian.min.js")
+    let library = assets::text("vendor/plotly/plotly-scatter-heatmap.min.js")
         .ok_or_else(|| ServiceError::Internal("plotting library missing from the build".into()))?;
     let report = service.report(&access, &library).await?;
     let hashes: Vec<String> = report
