@@ -93,6 +93,25 @@ export async function roomChecks({ page, args, gid, shots }) {
         await page.setViewportSize(size);
         const isLarge = await page.evaluate(() => document.documentElement.classList.contains("large-text"));
         if (isLarge !== large) await page.click("#large-text");
+        if (size.height <= 720) {
+          await check(`one view at ${label}: the figure starts on the first screen`, async () => {
+            if ((await page.getAttribute("#layout-toggle", "aria-pressed")) === "true") await page.click("#layout-toggle");
+            await page.click("#tab-map");
+            await page.evaluate(() => window.scrollTo(0, 0));
+            await page.waitForTimeout(400);
+            const shown = await page.evaluate(() => {
+              const plot = document.querySelector("#view-map")?.getBoundingClientRect();
+              return { top: plot ? plot.top : null, height: plot ? plot.height : 0, innerHeight: window.innerHeight, scrollWidth: document.documentElement.scrollWidth, innerWidth: window.innerWidth };
+            });
+            assert(shown.top !== null && shown.height > 0, "no map figure");
+            const top = /** @type {number} */ (shown.top);
+            // A third of the screen at least is figure (common practice, no source).
+            assert(top >= 0 && top <= 0.66 * shown.innerHeight, `the figure starts ${Math.round(top)} px down a ${shown.innerHeight} px screen`);
+            assert(shown.scrollWidth <= shown.innerWidth, `content ${shown.scrollWidth} px wide in a ${shown.innerWidth} px window`);
+            measurements.push(`map figure top at ${label}: ${Math.round(top)} px of ${shown.innerHeight}`);
+            shots.push(await sideShot(page, args.screenshot, `first-screen-${size.width}${large ? "-large" : ""}`));
+          });
+        }
         await check(`several views at ${label}: the chosen panels do not overlap and nothing scrolls sideways`, async () => {
           await page.click("#tab-map");
           if ((await page.getAttribute("#layout-toggle", "aria-pressed")) !== "true") await page.click("#layout-toggle");
