@@ -98,7 +98,11 @@ export async function roomChecks({ page, args, gid, shots }) {
             if ((await page.getAttribute("#layout-toggle", "aria-pressed")) === "true") await page.click("#layout-toggle");
             await page.click("#tab-map");
             await page.evaluate(() => window.scrollTo(0, 0));
-            await page.waitForTimeout(400);
+            // The figures are redrawn for the new lettering a moment after the switch.
+            await page
+              .waitForFunction(() => document.documentElement.scrollWidth <= window.innerWidth, null, { timeout: 5000 })
+              .catch(() => undefined);
+            await page.waitForTimeout(200);
             const shown = await page.evaluate(() => {
               const plot = document.querySelector("#view-map")?.getBoundingClientRect();
               return { top: plot ? plot.top : null, height: plot ? plot.height : 0, innerHeight: window.innerHeight, scrollWidth: document.documentElement.scrollWidth, innerWidth: window.innerWidth };

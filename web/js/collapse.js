@@ -240,7 +240,7 @@ const qualityRequests = new LatestOnly(
     const S = typeof answer.quality === "number" && Number.isFinite(answer.quality) ? answer.quality : null;
     state.quality = { z: p.z, S, n: answer.n_points };
     renderQuality();
-    drawInset();
+    drawInsetSoon();
   },
   (error) => {
     const readout = byId("quality-readout", HTMLOutputElement);
@@ -342,8 +342,22 @@ function redrawModelSoon() {
   }, 60);
 }
 
+/** Pending redraw of the S(z) inset. */
+let insetTimer = 0;
+
+/**
+ * Moves the inset's marker to the newest S once z has rested for a moment:
+ * during a drag a redraw of the inset per answer would take the frames the
+ * collapse needs.
+ */
+function drawInsetSoon() {
+  window.clearTimeout(insetTimer);
+  insetTimer = window.setTimeout(drawInset, 120);
+}
+
 /** Draws the S(z) inset when a best fit gave a scan. */
 function drawInset() {
+  window.clearTimeout(insetTimer);
   const el = byId("collapse-inset", HTMLElement);
   const best = state.best;
   const wanted = best !== null && best.scan.length > 0;
