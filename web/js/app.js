@@ -305,10 +305,9 @@ function followAddress() {
 }
 
 async function main() {
-  // Everything a first figure needs is asked for at once: the session, the
-  // dataset list and the first dataset; the plotting library (already
-  // running or run from the page's head) is waited for only before anything
-  // is drawn.
+  // Everything a first figure needs is asked for at once: the plotting
+  // library, the session, the dataset list and the first dataset; the
+  // library is waited for only before anything is drawn.
   const plotting = loadPlotting();
   const token = tokenFromLocation(window.location);
   const api = new SessionApi(token);

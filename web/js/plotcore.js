@@ -55,11 +55,10 @@ const LIBRARY = new URL("../vendor/plotly/plotly-scatter-heatmap.min.js", import
 let loading = null;
 
 /**
- * Waits for the vendored plotting library. The page's head loads it with
- * `async` (`#plotting-library`): it runs as soon as it has arrived, while
- * the page's modules are still coming, instead of after them; evaluating it
- * is the longest single piece of a first load. Without that element (a page
- * that does not load it) the library is added here.
+ * Loads the vendored plotting library once, as an ordinary script added to
+ * the page (the page's head preloads the file). The page asks for its data
+ * first and only then waits for this: evaluating the library is the longest
+ * single piece of a first load, and the requests run meanwhile.
  * @returns {Promise<void>} settles when `Plotly` is defined, or fails
  */
 export function loadPlotting() {
@@ -69,22 +68,11 @@ export function loadPlotting() {
       resolve();
       return;
     }
-    const failed = () => reject(new Error("the plotting library could not be loaded"));
-    const ran = () => (plottingAvailable() ? resolve() : failed());
-    let script = document.getElementById("plotting-library");
-    if (!(script instanceof HTMLScriptElement)) {
-      script = document.createElement("script");
-      /** @type {HTMLScriptElement} */ (script).src = LIBRARY;
-      document.head.append(script);
-    } else if (document.readyState === "complete") {
-      // The page's load event waits for async scripts: this one has failed.
-      failed();
-      return;
-    } else {
-      window.addEventListener("load", ran);
-    }
-    script.addEventListener("load", ran);
-    script.addEventListener("error", failed);
+    const script = document.createElement("script");
+    script.src = LIBRARY;
+    script.addEventListener("load", () => (plottingAvailable() ? resolve() : reject(new Error("the plotting library ran but defined nothing"))));
+    script.addEventListener("error", () => reject(new Error("the plotting library could not be loaded")));
+    document.head.append(script);
   });
   return loading;
 }
