@@ -94,14 +94,16 @@ fn run(
     println!(
         "    {} vectors, {:.1} Hamiltonian applications per vector ({:?} in the largest \
          sector); memory plan {:.0} MiB \
-         (Krylov dim {}, {} vectors in flight); C(0, t_max) = {:.6} ± {:.1e}; sum rule at \
-         t_max: {:.3e} off; largest standard error {:.1e}; propagation bound {:.1e}",
+         ({} vectors per pass, window of {} terms, {} output states held); C(0, t_max) = \
+         {:.6} ± {:.1e}; sum rule at t_max: {:.3e} off; largest standard error {:.1e}; \
+         propagation bound {:.1e}",
         result.vectors,
         result.applications as f64 / result.vectors.max(1) as f64,
         central,
         result.memory.bytes as f64 / (1u64 << 20) as f64,
-        result.memory.krylov_dim,
-        result.memory.concurrent_samples,
+        result.memory.lanes,
+        result.memory.window,
+        result.memory.slots,
         result.values[(last, source)],
         result.errors[(last, source)],
         (sum - 1.0).abs(),

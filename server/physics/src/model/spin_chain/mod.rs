@@ -83,8 +83,14 @@ pub enum SpinChainError {
     SiteMismatch { flip_flop: usize, ising: usize },
     #[error("spin chain: typicality needs at least 2 samples to state an error, got {0}")]
     TooFewSamples(usize),
-    #[error("spin chain: Krylov step tolerance must lie in (0, 1e-3], got {0}")]
+    #[error("spin chain: propagation tolerance must lie in (0, 1e-3], got {0}")]
     BadTolerance(f64),
+    #[error(
+        "spin chain: the spectrum of the sector with {up} up spins reaches outside the \
+         interval estimated for it (a Chebyshev term grew {growth:.6} times its start); \
+         the result would be wrong, so none is returned"
+    )]
+    SpectralBound { up: usize, growth: f64 },
     #[error(
         "spin chain: typicality for {sites} sites needs about {needed_bytes} bytes \
          ({detail}), over the memory limit of {limit_bytes} bytes"
