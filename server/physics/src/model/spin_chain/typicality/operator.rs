@@ -151,6 +151,13 @@ pub(super) struct SectorOperator {
     /// Per class c: an up spin at low site q leaves (columns in class
     /// c − 1, k = q).
     from_low: Vec<RowTable>,
+    /// Per high half h and direction (slot 2h + 1: its up spins move to
+    /// the low half; 2h: low spins move to its empty sites), the couplings
+    /// between every low site q and those high sites p, as
+    /// `[q · m + i]` for the i-th of the m sites in increasing order;
+    /// `crossing_start` has the offsets of the slots.
+    crossing_weights: Vec<f64>,
+    crossing_start: Vec<usize>,
     /// The fixed partition into parallel tasks: (panel, first row, rows).
     tasks: Vec<(usize, usize, usize)>,
 }
@@ -245,6 +252,18 @@ impl SectorOperator {
             .par_iter()
             .map(|&s| chain.diagonal_energy(s))
             .collect();
+        let mut crossing_weights = Vec::new();
+        let mut crossing_start = vec![0];
+        for h in 0u32..1 << high_bits {
+            for filled in [false, true] {
+                let sites: Vec<usize> = (0..high_bits).filter(|&p| bit(h, p) == filled).collect();
+                for q in 0..low_bits {
+                    crossing_weights
+                        .extend(sites.iter().map(|&p| coupling[(low_bits + p) * n + q]));
+                }
+                crossing_start.push(crossing_weights.len());
+            }
+        }
         let mut tasks = Vec::new();
         for (index, panel) in panels.iter().enumerate() {
             let per_task = (TASK_AMPLITUDES / panel.cols.max(1)).max(1);
@@ -262,6 +281,8 @@ impl SectorOperator {
             diagonal,
             low_bits,
             coupling,
+            crossing_weights,
+            crossing_start,
             panels,
             panel_of_class,
             high_words,
@@ -351,28 +372,23 @@ impl SectorOperator {
                             continue;
                         }
                         let mut sources: [&[[f64; B]]; MAX_HALF] = [&[]; MAX_HALF];
-                        let mut sites = [0usize; MAX_HALF];
                         let mut m = 0;
                         for p in (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled) {
                             sources[m] = self.row::<B>(x, class, h ^ (1 << p));
-                            sites[m] = p;
                             m += 1;
                         }
                         if m == 0 {
                             continue;
                         }
-                        let mut weights = [0.0; MAX_HALF * MAX_HALF];
-                        for q in 0..lb {
-                            for (i, &p) in sites[..m].iter().enumerate() {
-                                weights[q * m + i] = self.coupling[(lb + p) * n + q];
-                            }
-                        }
+                        let slot = 2 * h as usize + usize::from(filled);
+                        let weights = &self.crossing_weights
+                            [self.crossing_start[slot]..self.crossing_start[slot + 1]];
                         let table = if filled {
                             &self.to_low[c]
                         } else {
                             &self.from_low[c]
                         };
-                        table.add_crossing::<B>(&sources[..m], &weights[..lb * m], yr);
+                        table.add_crossing::<B>(&sources[..m], weights, yr);
                     }
                     for (k, (out, xv)) in yr.iter_mut().zip(xr).enumerate() {
                         let a = begin + k;
