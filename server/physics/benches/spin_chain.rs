@@ -191,7 +191,9 @@ fn main() {
             rest.first().copied(),
             rest.get(1).copied(),
         ),
-        [sites, samples, t_max, ..] => run(count(*sites), count(*samples), *t_max, 1.2, 20, None, None),
+        [sites, samples, t_max, ..] => {
+            run(count(*sites), count(*samples), *t_max, 1.2, 20, None, None)
+        }
         [sites, samples] => run(count(*sites), count(*samples), 10.0, 1.2, 20, None, None),
         [sites] => run(count(*sites), 2, 10.0, 1.2, 20, None, None),
         _ => {

@@ -115,6 +115,9 @@ fn spectral_interval_encloses_the_exact_spectrum() {
         (12, 3, 0.8, -0.5),
         (13, 6, f64::INFINITY, 1.0),
         (10, 1, 1.5, 0.3),
+        (12, 5, 3.0, 2.0),
+        (11, 4, 0.5, -1.0),
+        (4, 2, 1.0, 0.0),
     ] {
         let spin_chain = chain(sites, alpha, delta);
         let sector = Sector::new(sites, up);
