@@ -8,6 +8,7 @@
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 22 2 1  # ... and t_max
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 20 2 10 1.2 20  # ... α, times
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- 16 2 10 1.2 20 1e-12  # ... step tolerance
+//!   cargo bench -p spreadscope-physics --bench spin_chain -- 24 2 10 1.2 20 1e-8 3  # ... memory limit, GB
 //!   cargo bench -p spreadscope-physics --bench spin_chain -- exact 12 14
 //! The default run also starts the scipy reference (full 2^N space,
 //! `expm_multiply`, the same chain, times and number of random vectors) at
@@ -47,6 +48,7 @@ fn run(
     alpha: f64,
     n_times: usize,
     tolerance: Option<f64>,
+    memory_gb: Option<f64>,
 ) {
     let couplings = Couplings::power_law(sites, 1.0, alpha).expect("valid couplings");
     let chain = SpinChain::new(&couplings, 0.0).expect("valid chain");
@@ -57,6 +59,9 @@ fn run(
     let mut options = TypicalityOptions::new(samples, 2024);
     if let Some(tolerance) = tolerance {
         options.step_tolerance = tolerance;
+    }
+    if let Some(gb) = memory_gb {
+        options.memory_limit_bytes = (gb * 1e9) as u64;
     }
     let never = AtomicBool::new(false);
     let cpu_start = cpu_seconds();
@@ -94,14 +99,16 @@ fn run(
     println!(
         "    {} vectors, {:.1} Hamiltonian applications per vector ({:?} in the largest \
          sector); memory plan {:.0} MiB \
-         (Krylov dim {}, {} vectors in flight); C(0, t_max) = {:.6} ± {:.1e}; sum rule at \
-         t_max: {:.3e} off; largest standard error {:.1e}; propagation bound {:.1e}",
+         ({} vectors per pass, window of {} terms, {} output states held); C(0, t_max) = \
+         {:.6} ± {:.1e}; sum rule at t_max: {:.3e} off; largest standard error {:.1e}; \
+         propagation bound {:.1e}",
         result.vectors,
         result.applications as f64 / result.vectors.max(1) as f64,
         central,
         result.memory.bytes as f64 / (1u64 << 20) as f64,
-        result.memory.krylov_dim,
-        result.memory.concurrent_samples,
+        result.memory.lanes,
+        result.memory.window,
+        result.memory.slots,
         result.values[(last, source)],
         result.errors[(last, source)],
         (sum - 1.0).abs(),
@@ -182,15 +189,18 @@ fn main() {
             *alpha,
             count(*n_times),
             rest.first().copied(),
+            rest.get(1).copied(),
         ),
-        [sites, samples, t_max, ..] => run(count(*sites), count(*samples), *t_max, 1.2, 20, None),
-        [sites, samples] => run(count(*sites), count(*samples), 10.0, 1.2, 20, None),
-        [sites] => run(count(*sites), 2, 10.0, 1.2, 20, None),
+        [sites, samples, t_max, ..] => {
+            run(count(*sites), count(*samples), *t_max, 1.2, 20, None, None)
+        }
+        [sites, samples] => run(count(*sites), count(*samples), 10.0, 1.2, 20, None, None),
+        [sites] => run(count(*sites), 2, 10.0, 1.2, 20, None, None),
         _ => {
-            run(16, 2, 10.0, 1.2, 20, None);
+            run(16, 2, 10.0, 1.2, 20, None, None);
             run_scipy(16, 2, 1.2, 20);
-            run(18, 2, 10.0, 1.2, 20, None);
-            run(20, 2, 10.0, 1.2, 20, None);
+            run(18, 2, 10.0, 1.2, 20, None, None);
+            run(20, 2, 10.0, 1.2, 20, None, None);
         }
     }
 }

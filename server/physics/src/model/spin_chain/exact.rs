@@ -2,7 +2,7 @@
 //! diagonalisation of every magnetisation sector (N ≤ 14).
 //!
 //! Owns: the eigenbasis contraction below. Must not know: random sampling,
-//! Krylov propagation, files or threads of the server.
+//! time propagation of vectors, files or threads of the server.
 //!
 //! Method (derivable; the trace identities are common practice). In a sector
 //! with Hamiltonian H = V Λ Vᵀ (real orthogonal V, eigenvalues λ_m), σᶻ_i is

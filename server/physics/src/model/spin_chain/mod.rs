@@ -3,7 +3,7 @@
 //! computes the infinite-temperature correlation C_ij(t) from it:
 //! [`SpinChain::correlations_exact`] (full diagonalisation of every sector,
 //! N ≤ 14) and [`SpinChain::correlations_typical`] (dynamical typicality with
-//! Krylov propagation, matrix-free, N ≤ 24). Longer chains are left to the
+//! Chebyshev propagation, matrix-free, N ≤ 24). Longer chains are left to the
 //! semiclassical [`dtwa`] module.
 //!
 //! Owns: the Hamiltonian convention, the sector bases (combinatorial index),
@@ -47,8 +47,9 @@ pub const MAX_EXACT_SITES: usize = 14;
 
 /// Largest chain the typicality method accepts: basis states are 32-bit
 /// words and the Hamiltonian is applied without being stored, so the limit is
-/// the memory of the Krylov vectors (the central sector of 24 sites has
-/// C(24, 12) = 2704156 states, 43 MB per complex vector); the memory plan
+/// the memory of the propagated vectors (the central sector of 24 sites has
+/// C(24, 12) = 2704156 states, 22 MB per real vector, 43 MB per complex
+/// output state); the memory plan
 /// refuses a run that does not fit its limit.
 pub const MAX_TYPICAL_SITES: usize = 24;
 
@@ -83,8 +84,14 @@ pub enum SpinChainError {
     SiteMismatch { flip_flop: usize, ising: usize },
     #[error("spin chain: typicality needs at least 2 samples to state an error, got {0}")]
     TooFewSamples(usize),
-    #[error("spin chain: Krylov step tolerance must lie in (0, 1e-3], got {0}")]
+    #[error("spin chain: propagation tolerance must lie in (0, 1e-3], got {0}")]
     BadTolerance(f64),
+    #[error(
+        "spin chain: the spectrum of the sector with {up} up spins reaches outside the \
+         interval estimated for it (a Chebyshev term grew {growth:.6} times its start); \
+         the result would be wrong, so none is returned"
+    )]
+    SpectralBound { up: usize, growth: f64 },
     #[error(
         "spin chain: typicality for {sites} sites needs about {needed_bytes} bytes \
          ({detail}), over the memory limit of {limit_bytes} bytes"
@@ -356,7 +363,7 @@ impl SpinChain {
     }
 
     /// Typicality estimate of C_{i,source}(t) with `samples` random vectors
-    /// seeded by `seed`, default memory limit and Krylov tolerance, no
+    /// seeded by `seed`, default memory limit and propagation tolerance, no
     /// progress report; see [`typicality`] for the estimator.
     ///
     /// # Errors

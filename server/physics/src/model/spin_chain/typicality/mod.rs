@@ -1,24 +1,34 @@
 //! Infinite-temperature correlations of a [`SpinChain`] by dynamical
-//! typicality (N ≤ 24): random vectors stand in for the trace, and a Lanczos
-//! (Krylov) propagator evolves them sector by sector with a Hamiltonian that
-//! is applied without being stored (see `operator.rs`).
+//! typicality (N ≤ 24): random vectors stand in for the trace, and a
+//! Chebyshev propagator evolves them sector by sector with a Hamiltonian that
+//! is applied without being stored (see `operator.rs`, `chebyshev.rs`).
 //!
-//! Owns: the estimator, its statistical error, the Krylov propagator and its
-//! step control, the memory plan, and the per-sample random streams. Must not
+//! Owns: the estimator, its statistical error, the propagator and its
+//! tolerance, the memory plan, and the per-sample random streams. Must not
 //! know: files, the server's threads or wire formats; progress and
 //! cancellation come in as a callback and a flag.
 //!
 //! Estimator (derivable; the typicality identity E⟨ψ|A|ψ⟩ = Tr A for a vector
-//! of independent standard complex Gaussian amplitudes is common practice).
+//! of independent standard Gaussian amplitudes is common practice).
 //! With the projector Π_j = (1 + σᶻ_j)/2 and Tr σᶻ_i(t) = Tr σᶻ_i,
 //!
 //!   Tr_k[σᶻ_i(t) σᶻ_j] = 2 Tr_k[Π_j σᶻ_i(t) Π_j] − Tr_k σᶻ_i
 //!
-//! in every magnetisation sector k. Let |φ⟩ be Gaussian on the D = C(N−1, k−1)
-//! basis states of sector k with spin j up (that is, Π_j applied to a Gaussian
-//! vector of the sector). Its direction is uniform (Haar) on that subspace, so
-//! ⟨φ(t)|σᶻ_i|φ(t)⟩ / ⟨φ|φ⟩ is an unbiased estimate of Tr_k[Π_j σᶻ_i(t) Π_j]/D
-//! whose variance is O(1/D). Normalising sector by sector removes the
+//! in every magnetisation sector k. Let |φ⟩ have independent real standard
+//! Gaussian amplitudes on the D = C(N−1, k−1) basis states of sector k with
+//! spin j up (Π_j applied to a Gaussian vector of the sector). Its direction
+//! is uniform on the real sphere of that subspace, so
+//! ⟨φ(t)|σᶻ_i|φ(t)⟩ / ⟨φ|φ⟩ = φᵀ Re A φ / φᵀφ, A = Π_j σᶻ_i(t) Π_j, is an
+//! unbiased estimate of Tr_k A / D whose variance is O(1/D).
+//!
+//! Real vectors, not complex ones: H and σᶻ are real, so the conjugate of
+//! A(t) is A(−t), and the variance of the real estimate exceeds that of a
+//! complex Gaussian vector by the term Tr[A(t) A(−t)], a correlation at time
+//! 2t that has decayed at the times that matter (our own arithmetic; at
+//! t = 0 the real variance is twice the complex one). A real vector's
+//! Chebyshev recursion is real, half the work and memory of a complex one,
+//! so at late times a real vector buys the same error for half the cost.
+//! The stated errors come from the spread of the samples either way. Normalising sector by sector removes the
 //! fluctuation of the sector norms, makes C_jj(0) = 1 exactly and makes the
 //! sum rule Σ_i C_ij(t) = 1 hold for every single sample, because Σ_i σᶻ_i is
 //! the constant 2k − N in sector k. The estimate of C_ij(t) is
@@ -29,22 +39,38 @@
 //! vectors ([`vectors_in_sector`]); `errors` adds the standard errors of the
 //! sector means in quadrature, of order 2^{1−N/2}/√samples.
 //!
-//! Propagation: Lanczos for the exponential, ψ(t_0 + τ) ≈ ‖ψ‖ Q_m e^{−iτT_m} e_1
-//! (Saad, SIAM J. Numer. Anal. 29, 209 (1992)), without reorthogonalisation,
-//! which the exponential tolerates (Druskin, Greenbaum & Knizhnerman, SIAM J.
-//! Sci. Comput. 19, 38 (1998); both from memory). One Krylov space serves every
-//! output time it covers: a step τ is accepted when the a-posteriori estimate
-//! β_m |e_mᵀ e^{−iτT_m} e_1| of the relative state error is at most the step
-//! tolerance; the propagator then restarts from the largest accepted τ.
-//! Errors of the restarts add; their sum, doubled (a ratio of quadratic
-//! forms), is reported as `propagation_error`.
+//! Propagation: Chebyshev expansion of the exponential (H. Tal-Ezer and
+//! R. Kosloff, J. Chem. Phys. 81, 3967 (1984), from memory),
+//! e^{−iHτ} = e^{−ieτ} [J_0(hτ) + 2 Σ_{n≥1} (−i)^n J_n(hτ) T_n(H̃)] with
+//! H̃ = (H − e)/h and the sector's spectrum inside [e − h, e + h]. One
+//! expansion serves every output time of a stretch: the terms
+//! T_n(H̃)ψ follow from T_{n+1} = 2H̃T_n − T_{n−1}, a window of them is kept
+//! and added into every output state block by block, so each term is read
+//! once for all times. The series is cut where 2 Σ_{n>N} |J_n(hτ)| (a bound
+//! on the relative state error, as ‖T_n(H̃)‖ ≤ 1) falls below the step
+//! tolerance; when the output states do not all fit the memory plan the
+//! expansion restarts from the last state of a stretch and the bounds add.
+//! Their largest sum, doubled (a ratio of quadratic forms), is reported as
+//! `propagation_error`.
+//!
+//! The interval [e − h, e + h] comes from a short Lanczos run per sector
+//! (`chebyshev::spectrum`), widened by the residuals of its extreme Ritz
+//! pairs and a margin; should the spectrum still reach outside, the norm of
+//! some T_n ψ exceeds ‖ψ‖, which the propagator checks at every term and
+//! refuses ([`SpinChainError::SpectralBound`]) rather than return a wrong
+//! result.
+//!
+//! Several vectors of a sector ("lanes", up to [`MAX_LANES`]) are
+//! propagated together: one pass over the Hamiltonian's tables serves every
+//! lane, and every lane's arithmetic is the same as if it ran alone, so
+//! results do not depend on which vectors share a pass (nor on the thread
+//! count). Compared with the Lanczos propagator this module used before, at
+//! 20 sites the Chebyshev run needs no orthogonalisation or stored Krylov
+//! basis and about the same number of Hamiltonian applications per vector.
 //!
 //! The default step tolerance, 1e-8, sits far below the statistical error it
 //! is added to: that error is about 2^{1−N/2}/√samples, at least 2·10⁻⁵ for
-//! N ≤ 24 and up to 10⁴ samples, while a run restarts a few tens of times at
-//! most, so the propagation bound stays near 10⁻⁷ (printed by the bench:
-//! 5·10⁻⁸ at 20 sites). Tightening it to 1e-12 cost about a fifth more
-//! Hamiltonian applications for no visible change in any result.
+//! N ≤ 24 and up to 10⁴ samples.
 
 use crate::numerics::stats::standard_normal;
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
@@ -56,61 +82,37 @@ use rayon::prelude::*;
 
 use super::{MAX_TYPICAL_SITES, Sector, SpinChain, SpinChainError, binomial};
 use crate::model::correlation_map::CorrelationMap;
-use crate::numerics::linalg::{LinalgError, symmetric_eigen};
+use crate::numerics::linalg::symmetric_eigen;
+use crate::numerics::special::bessel_j;
 
-mod krylov;
+mod chebyshev;
 mod operator;
 
-use krylov::*;
+use chebyshev::*;
 use operator::*;
 
 /// Default memory limit for one typicality run: 2 GiB.
 pub const DEFAULT_MEMORY_LIMIT_BYTES: u64 = 2 << 30;
 
-/// Default relative state error accepted per Krylov step.
+/// Default bound on the relative state error of one expansion.
 pub const DEFAULT_STEP_TOLERANCE: f64 = 1e-8;
 
-/// Largest Krylov dimension: a longer space covers a longer time per
-/// Hamiltonian application (the first ~log(1/tol) vectors are overhead), at
-/// the cost of one stored vector per dimension. For N = 16–20, α = 1 and
-/// t ≤ 10, 128 needed about a quarter fewer applications than 64.
-const MAX_KRYLOV_DIM: usize = 128;
+/// Most vectors propagated together (see the module documentation).
+pub const MAX_LANES: usize = 4;
 
-/// Smallest Krylov dimension the memory plan may fall back to before it
-/// refuses; below this most of each space is overhead.
-const MIN_KRYLOV_DIM: usize = 24;
+/// Chebyshev terms kept before they are added into the output states: the
+/// outputs are read and written once per window, so their memory traffic
+/// per term falls as 1/window while the window's own vectors cost memory.
+const WINDOW: usize = 12;
 
-/// Fewest Krylov steps between two convergence checks of the whole
-/// remaining time interval (large sectors; small ones check less often).
-const CHECK_EVERY: usize = 4;
+/// Smallest window the memory plan may fall back to.
+const MIN_WINDOW: usize = 3;
 
-/// Rows per block when several output states are assembled and measured
-/// together (their partial states stay in the core's cache).
-const MEASURE_ROWS: usize = 512;
+/// Most output states held at once (more times restart the expansion).
+const MAX_SLOTS: usize = 64;
 
-/// Blocks (basis words with one high half, see [`SectorOperator`]) per
-/// parallel task at least.
-const BLOCKS_PER_TASK: usize = 8;
-
-/// Rows per parallel task in the sparse products (large enough that the
-/// scheduling cost is negligible, small enough to balance two cores).
-const ROWS_PER_TASK: usize = 4096;
-
-/// Bytes the Krylov vectors of one vector in flight may take before the
-/// plan shortens the Krylov space: 256 MiB keeps a 20-site run under 300 MB
-/// with 87 dimensions.
-const KRYLOV_BUDGET_BYTES: u64 = 256 << 20;
-
-/// Krylov dimension the plan grants beyond [`KRYLOV_BUDGET_BYTES`] when the
-/// memory limit allows (22 and 24 sites): with a shorter space most of
-/// each restart is spent before the error estimate falls (measured at 20
-/// sites, α = 1.2, tolerance 1e-8: a 65-dimensional space advances 2.6 time
-/// units, 44 dimensions' worth of the spectral width).
-const LONG_CHAIN_KRYLOV_DIM: usize = 64;
-
-/// Sectors smaller than this propagate several vectors at once (one per
-/// thread); larger ones propagate one vector at a time, parallel over
-/// amplitudes, so that only one set of Krylov vectors is in memory.
+/// Sectors smaller than this propagate several groups of lanes at once
+/// (one per thread); larger ones one group at a time, parallel over rows.
 const SMALL_SECTOR: usize = 1 << 14;
 
 /// Largest factor by which a small sector gets more vectors than the
@@ -127,7 +129,8 @@ pub struct TypicalityOptions {
     pub seed: u64,
     /// Refuse up front when the memory plan exceeds this many bytes.
     pub memory_limit_bytes: u64,
-    /// Accepted relative state error per Krylov step, in (0, 1e-3].
+    /// Bound on the relative state error of one Chebyshev expansion, in
+    /// (0, 1e-3].
     pub step_tolerance: f64,
 }
 
@@ -147,14 +150,16 @@ impl TypicalityOptions {
 /// How a typicality run uses memory, decided before it starts.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub struct MemoryPlan {
-    /// Estimated peak bytes (Krylov vectors of the largest sector, its basis
-    /// and diagonal, index tables, per-vector results).
+    /// Estimated peak bytes (the propagation vectors of the largest sector,
+    /// its basis and diagonal, per-vector results).
     pub bytes: u64,
-    /// Largest Krylov dimension used.
-    pub krylov_dim: usize,
-    /// Vectors propagated at the same time in the largest sector (1: the
-    /// threads share the amplitudes of one vector).
-    pub concurrent_samples: usize,
+    /// Vectors propagated together in the largest sector.
+    pub lanes: usize,
+    /// Chebyshev terms kept between additions into the outputs.
+    pub window: usize,
+    /// Output states held at once (fewer than the times: the expansion
+    /// restarts).
+    pub slots: usize,
 }
 
 /// Typicality estimate of C_{i,source}(t), `[time, site]`, in the order of the
@@ -170,8 +175,8 @@ pub struct TypicalityResult {
     pub seed: u64,
     pub source: usize,
     pub times: Vec<f64>,
-    /// Bound on the deterministic error of each value from the Krylov
-    /// propagation (sum of accepted step-error estimates, doubled).
+    /// Bound on the deterministic error of each value from the Chebyshev
+    /// propagation (sum of the expansions' tail bounds, doubled).
     pub propagation_error: f64,
     /// The memory plan the run used.
     pub memory: MemoryPlan,
@@ -217,15 +222,17 @@ pub fn vectors_in_sector(sites: usize, up: usize, samples: usize) -> usize {
 }
 
 /// The memory plan of a typicality run, decided from the largest sector
-/// (d = C(N, ⌊N/2⌋)): the Krylov dimension is the largest in [24, 128]
-/// whose vectors fit 256 MiB, but at least 64, shortened (never below 24)
-/// when the whole plan would exceed `limit_bytes`; vectors of large sectors are
-/// propagated one at a time with the threads sharing its amplitudes.
+/// (d = C(N, ⌊N/2⌋)): [`MAX_LANES`] vectors together when their window of
+/// [`WINDOW`] Chebyshev terms and every output state fit `limit_bytes`, else
+/// one vector at a time; then fewer output states held at once (the
+/// expansion restarts between them) and a shorter window, before it
+/// refuses.
 ///
 /// # Errors
-/// [`SpinChainError::MemoryLimit`] when not even the smallest Krylov space
-/// fits; [`SpinChainError::TooLargeForTypicality`] beyond
-/// [`MAX_TYPICAL_SITES`] sites.
+/// [`SpinChainError::MemoryLimit`] when not even one lane with a window of
+/// [`MIN_WINDOW`] terms and one output state fits;
+/// [`SpinChainError::TooLargeForTypicality`] beyond [`MAX_TYPICAL_SITES`]
+/// sites.
 pub fn memory_plan(
     chain: &SpinChain,
     samples: usize,
@@ -240,49 +247,45 @@ pub fn memory_plan(
         });
     }
     let d = binomial(sites, sites / 2) as u64;
-    // Basis words, diagonal, two rank tables, per-vector results.
-    let tables = (((sites / 2 + 2) as u64) << (sites - sites / 2)) * 4;
+    // Basis words, diagonal, rank tables, per-vector results, and the three
+    // vectors of the spectral estimate (freed before propagation starts).
+    let tables = (1u64 << (sites - sites / 2)) * 4 + (1u64 << (sites / 2)) * 4;
     let results: u64 = (0..=sites / 2)
         .map(|k| (vectors_in_sector(sites, k, samples) * n_times * sites * 8) as u64)
         .sum();
     let fixed = d * 4 + d * 8 + tables + results;
-    // Krylov vectors plus w, ψ and the measured block, 16 bytes per amplitude.
-    let vectors = |dim: usize| (dim as u64 + 3) * d * 16;
-    let preferred = (MIN_KRYLOV_DIM..=MAX_KRYLOV_DIM)
-        .rev()
-        .find(|&m| vectors(m) <= KRYLOV_BUDGET_BYTES)
-        .unwrap_or(MIN_KRYLOV_DIM)
-        .max(LONG_CHAIN_KRYLOV_DIM);
-    let krylov_dim = (MIN_KRYLOV_DIM..=preferred)
-        .rev()
-        .find(|&m| fixed + vectors(m) <= limit_bytes)
+    // Per lane: the window of real terms and the start vector (8 bytes per
+    // amplitude), the complex output states (16 bytes).
+    let vectors = |lanes: usize, window: usize, slots: usize| {
+        ((window as u64 + 1) * 8 + slots as u64 * 16) * d * lanes as u64
+    };
+    let all_slots = n_times.clamp(1, MAX_SLOTS);
+    let mut candidates = Vec::new();
+    for lanes in (1..=MAX_LANES.min(samples.max(1))).rev() {
+        candidates.push((lanes, WINDOW, all_slots));
+    }
+    candidates.extend((1..all_slots).rev().map(|slots| (1, WINDOW, slots)));
+    candidates.extend((MIN_WINDOW..WINDOW).rev().map(|window| (1, window, 1)));
+    let (lanes, window, slots) = candidates
+        .into_iter()
+        .find(|&(lanes, window, slots)| fixed + vectors(lanes, window, slots) <= limit_bytes)
         .ok_or_else(|| SpinChainError::MemoryLimit {
             sites,
-            needed_bytes: fixed + vectors(MIN_KRYLOV_DIM),
+            needed_bytes: fixed + vectors(1, MIN_WINDOW, 1),
             limit_bytes,
             detail: format!(
-                "{} bytes for {MIN_KRYLOV_DIM} + 3 Krylov vectors of the largest sector \
-                 (dimension {d}) and {fixed} bytes for its basis, diagonal and results",
-                vectors(MIN_KRYLOV_DIM)
+                "{} bytes for {MIN_WINDOW} Chebyshev terms and one output state of the \
+                 largest sector (dimension {d}) and {fixed} bytes for its basis, diagonal \
+                 and results",
+                vectors(1, MIN_WINDOW, 1)
             ),
         })?;
-    let concurrent_samples = if (d as usize) < SMALL_SECTOR {
-        rayon::current_num_threads().min(samples).max(1)
-    } else {
-        1
-    };
     Ok(MemoryPlan {
-        bytes: fixed + concurrent_samples as u64 * vectors(krylov_dim),
-        krylov_dim,
-        concurrent_samples,
+        bytes: fixed + vectors(lanes, window, slots),
+        lanes,
+        window,
+        slots,
     })
-}
-
-/// A standard complex Gaussian amplitude (E|z|² = 2): two independent
-/// standard normal parts from the crate's one sampler (`numerics::stats`).
-fn gaussian(rng: &mut ChaCha8Rng) -> Amp {
-    let re = standard_normal(rng);
-    Amp::new(re, standard_normal(rng))
 }
 
 /// What one random vector of one sector measured: ⟨φ(t)|σᶻ_i|φ(t)⟩/⟨φ|φ⟩
@@ -391,68 +394,110 @@ pub fn vector_records(
         }
         let sector = Sector::new(sites, up);
         let operator = SectorOperator::build(chain, &sector);
+        drop(sector);
         let propagator = Propagator {
             operator: &operator,
-            max_dim: plan.krylov_dim,
+            spectrum: spectrum(&operator, up)?,
+            up,
             tolerance: options.step_tolerance,
+            window: plan.window,
+            slots: plan.slots,
             cancel,
         };
-        let dim = sector.dim() as u64;
-        let fine_progress = sector.dim() >= ROWS_PER_TASK;
-        let concurrent = if sector.dim() < SMALL_SECTOR {
-            rayon::current_num_threads().max(1)
-        } else {
-            1
+        let lanes = Lanes {
+            propagator: &propagator,
+            seed: options.seed,
+            source,
+            sorted: &sorted,
+            order: &order,
+            report: &report,
         };
-        let run_one = |vector: usize| -> Result<VectorRecord, SpinChainError> {
-            let mut rng = ChaCha8Rng::seed_from_u64(options.seed);
-            rng.set_stream(((vector as u64) << 8) | up as u64);
-            let start: Vec<Amp> = sector
-                .states
-                .iter()
-                .map(|&s| {
-                    if (s >> source) & 1 == 1 {
-                        gaussian(&mut rng)
-                    } else {
-                        Amp::default()
-                    }
-                })
-                .collect();
-            let mut ratios = Array2::<f64>::zeros((n_times, sites));
-            let (error, applications) = propagator.run(start, &sorted, |indices, outputs| {
-                let batch = outputs.magnetisation_ratios(&sector.states, sites);
-                for (&k, row) in indices.iter().zip(batch) {
-                    ratios
-                        .row_mut(order[k])
-                        .assign(&ndarray::ArrayView1::from(&row));
-                }
-                if fine_progress {
-                    report(dim * indices.len() as u64);
-                }
-            })?;
-            if !fine_progress {
-                report(dim * n_times as u64);
-            }
-            Ok(VectorRecord {
-                up,
-                vector,
-                ratios,
-                propagation_error: error,
-                applications,
-            })
+        let run_group = |group: &[usize]| match group.len() {
+            4 => lanes.run::<4>(group),
+            3 => lanes.run::<3>(group),
+            2 => lanes.run::<2>(group),
+            _ => lanes.run::<1>(group),
         };
-        for batch in vectors.chunks(concurrent) {
-            let outcomes: Vec<Result<VectorRecord, SpinChainError>> = if batch.len() == 1 {
-                vec![run_one(batch[0])]
+        // Smaller sectors afford more lanes in the memory of the largest.
+        let largest = binomial(sites, sites / 2);
+        let lanes_here = (plan.lanes * largest / operator.dim()).clamp(1, MAX_LANES);
+        let groups: Vec<&[usize]> = vectors.chunks(lanes_here).collect();
+        let outcomes: Vec<Result<Vec<VectorRecord>, SpinChainError>> =
+            if operator.dim() < SMALL_SECTOR {
+                groups.par_iter().map(|g| run_group(g)).collect()
             } else {
-                batch.par_iter().map(|&v| run_one(v)).collect()
+                groups.iter().map(|g| run_group(g)).collect()
             };
-            for outcome in outcomes {
-                records.push(outcome?);
-            }
+        for outcome in outcomes {
+            records.extend(outcome?);
         }
     }
     Ok(records)
+}
+
+/// What the vectors of one sector share while they are propagated.
+struct Lanes<'a> {
+    propagator: &'a Propagator<'a>,
+    seed: u64,
+    source: usize,
+    sorted: &'a [f64],
+    order: &'a [usize],
+    report: &'a (dyn Fn(u64) + Sync),
+}
+
+impl Lanes<'_> {
+    /// Propagates the vectors `group` (B of them) together and returns
+    /// their records; every vector draws its start from its own stream.
+    fn run<const B: usize>(&self, group: &[usize]) -> Result<Vec<VectorRecord>, SpinChainError> {
+        let operator = self.propagator.operator;
+        let up = self.propagator.up;
+        let sites = operator.sites;
+        let n_times = self.sorted.len();
+        let dim = operator.dim();
+        let mut start = vec![[0.0; B]; dim];
+        for (b, &vector) in group.iter().enumerate() {
+            let mut rng = ChaCha8Rng::seed_from_u64(self.seed);
+            rng.set_stream(((vector as u64) << 8) | up as u64);
+            for (amplitude, &state) in start.iter_mut().zip(&operator.states) {
+                if (state >> self.source) & 1 == 1 {
+                    amplitude[b] = standard_normal(&mut rng);
+                }
+            }
+        }
+        let mut ratios = vec![Array2::<f64>::zeros((n_times, sites)); B];
+        let units = (dim * B * n_times) as u64;
+        let mut reported = 0u64;
+        let mut tick = |fraction: f64| {
+            let target = ((fraction * units as f64) as u64).min(units);
+            if target > reported {
+                (self.report)(target - reported);
+                reported = target;
+            }
+        };
+        let outcome =
+            self.propagator
+                .run::<B>(&start, self.sorted, &mut tick, |indices, states| {
+                    for (&k, state) in indices.iter().zip(states) {
+                        let measured = magnetisation_ratios::<B>(state, &operator.states, sites);
+                        for (lane, row) in ratios.iter_mut().zip(measured) {
+                            lane.row_mut(self.order[k])
+                                .assign(&ndarray::ArrayView1::from(&row));
+                        }
+                    }
+                })?;
+        tick(1.0);
+        Ok(group
+            .iter()
+            .zip(ratios)
+            .map(|(&vector, ratios)| VectorRecord {
+                up,
+                vector,
+                ratios,
+                propagation_error: outcome.error,
+                applications: outcome.applications,
+            })
+            .collect())
+    }
 }
 
 /// Combines the records of a complete run into the estimate (see the

@@ -1,99 +1,173 @@
 //! The Hamiltonian of one magnetisation sector applied without being
-//! stored, block by block over the upper half of the spin word, and the
-//! vector operations of the Lanczos recurrence (module documentation of
-//! `typicality`).
+//! stored, to one or several real vectors at once ("lanes"), in a basis
+//! ordered so that every part of H reads contiguous rows (module
+//! documentation of `typicality`).
 
 use super::*;
 
-/// A complex amplitude (num-complex's `Complex64`: fields `re`, `im`); H is
-/// real, so its real and imaginary parts share the decoding of every sparse
-/// entry.
+/// A complex amplitude (num-complex's `Complex64`) of an output state.
 pub(super) type Amp = num_complex::Complex64;
 
-/// The Hamiltonian of one sector, applied without being stored.
-///
-/// Every basis word splits into a low half (bits below `low_bits`) and a high
-/// half. The combinatorial rank (see [`Sector`]) is the rank of the low half
-/// among the low words with the same number c of set bits plus a share that
-/// depends on the high half and c alone, so the words with one high half
-/// form a contiguous block, ordered like the low words of class c (the
-/// two-table indexing of H. Q. Lin, Phys. Rev. B 42, 6561 (1990), from
-/// memory). A flip-flop moves an up spin p to an empty site q; by where p
-/// and q lie, H splits into three parts, each applied block by block
-/// without computing a rank per matrix element:
-///
-/// - both in the high half: block h meets block h' = h with the spin moved,
-///   row for row (a scaled vector sum over the block);
-/// - both in the low half: the same small sparse matrix of class c inside
-///   every block (tabulated once per class);
-/// - one in each half: block h meets the block with one more or one fewer
-///   high bit, rows paired by a table per class and low site.
-///
-/// Only the diagonal (d values) and tables of the low words are stored: a
-/// 20-site sector needs 1.5 MB instead of 74 MB of packed matrix entries.
-#[derive(Debug)]
-pub(super) struct SectorOperator {
-    pub(super) diagonal: Vec<f64>,
-    pub(super) sites: usize,
-    pub(super) low_bits: u32,
-    /// J_ij in row-major order (N × N, zero on the diagonal).
-    pub(super) coupling: Vec<f64>,
-    /// The blocks in basis order: (high word, class c, first row).
-    pub(super) blocks: Vec<(u32, usize, usize)>,
-    /// First row of the block of every high word (unused words: 0).
-    pub(super) block_start: Vec<usize>,
-    /// Per class c: the flip-flops inside the low half.
-    pub(super) inside: Vec<RowTable>,
-    /// Per class c and high site p: an up spin at p moves to any empty low
-    /// site (columns in class c + 1).
-    pub(super) to_low: Vec<Vec<RowTable>>,
-    /// Per class c and high site p: an up spin of the low half moves to the
-    /// empty site p (columns in class c − 1).
-    pub(super) from_low: Vec<Vec<RowTable>>,
+/// Most sites in one half of the chain (N ≤ 24).
+const MAX_HALF: usize = 12;
+
+/// Rows of the basis handled by one parallel task at least (about 16 kB
+/// of amplitudes per lane for the middle panels of 20 sites).
+const TASK_AMPLITUDES: usize = 2048;
+
+/// Per lane: Re⟨x|y⟩ and ⟨y|y⟩ of one application (see
+/// [`SectorOperator::apply`]).
+#[derive(Debug, Clone, Copy, Default, PartialEq)]
+pub(super) struct LaneSums {
+    pub(super) overlap: f64,
+    pub(super) norm_sq: f64,
+}
+
+/// One class panel of the basis: the words whose low half (sites below
+/// `low_bits`) has `class` set bits. Its rows are the high halves with
+/// up − class set bits, its columns the low halves of the class, both in
+/// increasing numeric order; the panel is stored row by row.
+#[derive(Debug, Clone, Copy)]
+pub(super) struct Panel {
+    pub(super) class: usize,
+    pub(super) start: usize,
+    pub(super) rows: usize,
+    pub(super) cols: usize,
 }
 
 /// A small sparse matrix between two classes of low words, row by row:
-/// row r holds (column r', J) for `entries[rows[r]..rows[r + 1]]`.
+/// row r holds (column r', coupling index k) for
+/// `entries[rows[r]..rows[r + 1]]`; the coupling is looked up as `j[k]` in
+/// a slice the caller chooses, so one table serves every high site.
 #[derive(Debug, Default)]
 pub(super) struct RowTable {
-    pub(super) rows: Vec<usize>,
-    pub(super) entries: Vec<(u16, f64)>,
+    rows: Vec<u32>,
+    entries: Vec<(u16, u16)>,
 }
 
 impl RowTable {
     /// Row by row over `words` (one class), the entries `of(word)` yields.
-    pub(super) fn build(words: &[u32], of: impl Fn(u32) -> Vec<(u16, f64)>) -> Self {
+    fn build(words: &[u32], of: impl Fn(u32) -> Vec<(u16, u16)>) -> Self {
         let mut rows = vec![0];
         let mut entries = Vec::new();
         for &w in words {
             entries.extend(of(w));
-            rows.push(entries.len());
+            rows.push(entries.len() as u32);
         }
         Self { rows, entries }
     }
 
-    /// y_r += Σ J x_{r'} over the rows of y.
+    /// y_r += Σ j[k] x_{r'} over the rows of y, lane by lane (`B` lanes
+    /// interleaved: amplitude of row r, lane b at r·B + b).
     #[inline]
-    pub(super) fn add_product(&self, x: &[Amp], y: &mut [Amp]) {
+    fn add_product<const B: usize>(&self, x: &[[f64; B]], j: &[f64], y: &mut [[f64; B]]) {
         for (r, out) in y.iter_mut().enumerate() {
-            let (mut re, mut im) = (0.0, 0.0);
-            for &(r2, j) in &self.entries[self.rows[r]..self.rows[r + 1]] {
-                let v = x[r2 as usize];
-                re += j * v.re;
-                im += j * v.im;
+            let mut acc = [0.0; B];
+            let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
+            for &(col, k) in &self.entries[from..to] {
+                let weight = j[k as usize];
+                let src = &x[col as usize];
+                for b in 0..B {
+                    acc[b] += weight * src[b];
+                }
             }
-            out.re += re;
-            out.im += im;
+            for b in 0..B {
+                out[b] += acc[b];
+            }
         }
     }
+}
+
+impl RowTable {
+    /// y_r += Σ_{(r', q)} Σ_i j[q · m + i] · sources_i[r'] over the rows of
+    /// y (m sources), lane by lane: one table entry serves every source.
+    #[inline]
+    fn add_crossing<const B: usize>(&self, sources: &[&[[f64; B]]], j: &[f64], y: &mut [[f64; B]]) {
+        let m = sources.len();
+        for (r, out) in y.iter_mut().enumerate() {
+            let mut acc = [0.0; B];
+            let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
+            for &(col, q) in &self.entries[from..to] {
+                let weights = &j[q as usize * m..(q as usize + 1) * m];
+                for (source, &weight) in sources.iter().zip(weights) {
+                    let v = &source[col as usize];
+                    for b in 0..B {
+                        acc[b] += weight * v[b];
+                    }
+                }
+            }
+            for b in 0..B {
+                out[b] += acc[b];
+            }
+        }
+    }
+}
+
+/// The Hamiltonian of one sector, applied without being stored.
+///
+/// Every basis word splits into a low half (the `low_bits` lowest sites) and
+/// a high half. The basis is ordered by the number c of up spins in the low
+/// half ("class"), then by the high half, then by the low half: each class
+/// is a panel whose rows are high halves and whose columns are low halves
+/// (two-table indexing in the spirit of H. Q. Lin, Phys. Rev. B 42, 6561
+/// (1990), from memory). A flip-flop moves an up spin p to an empty site q;
+/// by where p and q lie, H splits into three parts, each applied row by row
+/// without computing a rank per matrix element:
+///
+/// - both in the high half: row h of a panel meets row h' of the same panel
+///   (h' = h with the spin moved), column for column — a scaled sum of two
+///   contiguous rows;
+/// - both in the low half: the same small sparse matrix of class c inside
+///   every row of the panel (one table per class);
+/// - one in each half: row h of panel c meets a row of panel c ± 1, columns
+///   paired by one table per class that stores the low site, so that the
+///   coupling to the high site is looked up in that site's row of J.
+///
+/// The tables store 4 bytes per entry and do not depend on the high site,
+/// so the tables of a class stay in the core's cache while its panel is
+/// swept; a 20-site sector needs about 40 kB of tables.
+#[derive(Debug)]
+pub(super) struct SectorOperator {
+    pub(super) sites: usize,
+    up: usize,
+    /// Basis words in basis order.
+    pub(super) states: Vec<u32>,
+    pub(super) diagonal: Vec<f64>,
+    low_bits: usize,
+    /// J_ij in row-major order (N × N, zero on the diagonal).
+    coupling: Vec<f64>,
+    panels: Vec<Panel>,
+    /// Index into `panels` of every class that has one.
+    panel_of_class: Vec<Option<usize>>,
+    /// High halves by their number of set bits, in increasing order.
+    high_words: Vec<Vec<u32>>,
+    /// Position of every high half among those with as many set bits.
+    high_rank: Vec<u32>,
+    /// Per class c: the flip-flops inside the low half (k = p·N + q).
+    inside: Vec<RowTable>,
+    /// Per class c: an empty low site q receives an up spin (columns in
+    /// class c + 1, k = q).
+    to_low: Vec<RowTable>,
+    /// Per class c: an up spin at low site q leaves (columns in class
+    /// c − 1, k = q).
+    from_low: Vec<RowTable>,
+    /// Per high half h and direction (slot 2h + 1: its up spins move to
+    /// the low half; 2h: low spins move to its empty sites), the couplings
+    /// between every low site q and those high sites p, as
+    /// `[q · m + i]` for the i-th of the m sites in increasing order;
+    /// `crossing_start` has the offsets of the slots.
+    crossing_weights: Vec<f64>,
+    crossing_start: Vec<usize>,
+    /// The fixed partition into parallel tasks: (panel, first row, rows).
+    tasks: Vec<(usize, usize, usize)>,
 }
 
 impl SectorOperator {
     pub(super) fn build(chain: &SpinChain, sector: &Sector) -> Self {
         let n = sector.sites;
         let up = sector.up;
-        let low_bits = (n / 2) as u32;
-        let high_bits = n as u32 - low_bits;
+        let low_bits = n / 2;
+        let high_bits = n - low_bits;
         let mut coupling = vec![0.0; n * n];
         for term in chain.flip_terms() {
             let i = term.mask.trailing_zeros() as usize;
@@ -101,25 +175,29 @@ impl SectorOperator {
             coupling[i * n + j] = term.amplitude;
             coupling[j * n + i] = term.amplitude;
         }
-        // Low words by class, in increasing order (= their rank in the class).
-        let mut words: Vec<Vec<u32>> = vec![Vec::new(); low_bits as usize + 1];
-        for w in 0u32..1 << low_bits {
-            words[w.count_ones() as usize].push(w);
-        }
-        let rank = |w: u32| rank_share(w, 0, 0) as u16;
-        let lb = low_bits as usize;
-        let low_sites = || 0..low_bits;
-        let j_of = |a: usize, b: usize| coupling[a * n + b];
-        let inside = words
+        let by_count = |bits: usize| {
+            let mut words: Vec<Vec<u32>> = vec![Vec::new(); bits + 1];
+            let mut rank = vec![0u32; 1 << bits];
+            for w in 0u32..1 << bits {
+                let class = &mut words[w.count_ones() as usize];
+                rank[w as usize] = class.len() as u32;
+                class.push(w);
+            }
+            (words, rank)
+        };
+        let (low_words, low_rank) = by_count(low_bits);
+        let (high_words, high_rank) = by_count(high_bits);
+        let low = |w: u32| low_rank[w as usize] as u16;
+        let bit = |w: u32, s: usize| (w >> s) & 1 == 1;
+        let inside = low_words
             .iter()
             .map(|class| {
                 RowTable::build(class, |w| {
                     let mut out = Vec::new();
-                    for p in low_sites().filter(|&p| (w >> p) & 1 == 1) {
-                        for q in low_sites().filter(|&q| (w >> q) & 1 == 0) {
-                            let j = j_of(p as usize, q as usize);
-                            if j != 0.0 {
-                                out.push((rank(w ^ (1 << p) ^ (1 << q)), j));
+                    for p in (0..low_bits).filter(|&p| bit(w, p)) {
+                        for q in (0..low_bits).filter(|&q| !bit(w, q)) {
+                            if coupling[p * n + q] != 0.0 {
+                                out.push((low(w ^ (1 << p) ^ (1 << q)), (p * n + q) as u16));
                             }
                         }
                     }
@@ -127,191 +205,241 @@ impl SectorOperator {
                 })
             })
             .collect();
-        let cross = |leaving: bool| -> Vec<Vec<RowTable>> {
-            words
+        let cross = |filled: bool| -> Vec<RowTable> {
+            low_words
                 .iter()
                 .map(|class| {
-                    (0..high_bits as usize)
-                        .map(|p| {
-                            RowTable::build(class, |w| {
-                                low_sites()
-                                    .filter(|&q| ((w >> q) & 1 == 1) == leaving)
-                                    .map(|q| (rank(w ^ (1 << q)), j_of(q as usize, lb + p)))
-                                    .filter(|&(_, j)| j != 0.0)
-                                    .collect()
-                            })
-                        })
-                        .collect()
+                    RowTable::build(class, |w| {
+                        (0..low_bits)
+                            .filter(|&q| bit(w, q) == filled)
+                            .map(|q| (low(w ^ (1 << q)), q as u16))
+                            .collect()
+                    })
                 })
                 .collect()
         };
         let to_low = cross(false);
         let from_low = cross(true);
-        let mut blocks = Vec::new();
-        let mut block_start = vec![0usize; 1 << high_bits];
-        for h in 0u32..1 << high_bits {
-            let high_up = h.count_ones() as usize;
-            if high_up > up || up - high_up > low_bits as usize {
+
+        let mut panels = Vec::new();
+        let mut panel_of_class = vec![None; low_bits + 1];
+        let mut start = 0;
+        for (class, slot) in panel_of_class.iter_mut().enumerate() {
+            if class > up || up - class > high_bits {
                 continue;
             }
-            let class = up - high_up;
-            let start = rank_share(h, low_bits, class as u32);
-            block_start[h as usize] = start;
-            blocks.push((h, class, start));
+            let rows = high_words[up - class].len();
+            let cols = low_words[class].len();
+            *slot = Some(panels.len());
+            panels.push(Panel {
+                class,
+                start,
+                rows,
+                cols,
+            });
+            start += rows * cols;
         }
-        blocks.sort_by_key(|&(_, _, start)| start);
-        let diagonal = sector
-            .states
+        debug_assert_eq!(start, sector.dim());
+        let mut states = Vec::with_capacity(start);
+        for panel in &panels {
+            for &h in &high_words[up - panel.class] {
+                for &l in &low_words[panel.class] {
+                    states.push((h << low_bits) | l);
+                }
+            }
+        }
+        let diagonal = states
             .par_iter()
             .map(|&s| chain.diagonal_energy(s))
             .collect();
+        let mut crossing_weights = Vec::new();
+        let mut crossing_start = vec![0];
+        for h in 0u32..1 << high_bits {
+            for filled in [false, true] {
+                let sites: Vec<usize> = (0..high_bits).filter(|&p| bit(h, p) == filled).collect();
+                for q in 0..low_bits {
+                    crossing_weights
+                        .extend(sites.iter().map(|&p| coupling[(low_bits + p) * n + q]));
+                }
+                crossing_start.push(crossing_weights.len());
+            }
+        }
+        let mut tasks = Vec::new();
+        for (index, panel) in panels.iter().enumerate() {
+            let per_task = (TASK_AMPLITUDES / panel.cols.max(1)).max(1);
+            let mut row = 0;
+            while row < panel.rows {
+                let count = per_task.min(panel.rows - row);
+                tasks.push((index, row, count));
+                row += count;
+            }
+        }
         Self {
-            diagonal,
             sites: n,
+            up,
+            states,
+            diagonal,
             low_bits,
             coupling,
-            blocks,
-            block_start,
+            crossing_weights,
+            crossing_start,
+            panels,
+            panel_of_class,
+            high_words,
+            high_rank,
             inside,
             to_low,
             from_low,
+            tasks,
         }
     }
 
-    /// Position of a word of this sector in its basis.
-    #[cfg(test)]
-    pub(super) fn index_of(&self, state: u32) -> usize {
-        let low = state & ((1 << self.low_bits) - 1);
-        let high = state >> self.low_bits;
-        self.block_start[high as usize] + rank_share(low, 0, 0)
+    pub(super) fn dim(&self) -> usize {
+        self.states.len()
     }
 
-    /// y_block += (H − diagonal) x on the rows of one block.
-    pub(super) fn off_diagonal_block(&self, h: u32, class: usize, x: &[Amp], y: &mut [Amp]) {
+    /// The row of panel `class` whose high half is `h`.
+    fn row<'x, const B: usize>(&self, x: &'x [[f64; B]], class: usize, h: u32) -> &'x [[f64; B]] {
+        let panel = &self.panels[self.panel_of_class[class].expect("panel of a valid class")];
+        let first = panel.start + self.high_rank[h as usize] as usize * panel.cols;
+        &x[first..first + panel.cols]
+    }
+
+    /// y ← s·(H − e)·x − z for `B` interleaved lanes (z: the optional
+    /// `back` vector), returning per lane Re⟨x|y⟩ and ⟨y|y⟩. Sums run over
+    /// a fixed partition of the rows in basis order, so that neither the
+    /// thread count nor the other lanes change a lane's bits.
+    pub(super) fn apply<const B: usize>(
+        &self,
+        x: &[[f64; B]],
+        y: &mut [[f64; B]],
+        scale: f64,
+        shift: f64,
+        back: Option<&[[f64; B]]>,
+    ) -> [LaneSums; B] {
         let n = self.sites;
-        let lb = self.low_bits as usize;
+        let lb = self.low_bits;
         let high_bits = n - lb;
-        // Low half: the class's sparse matrix, inside the block.
-        let start = self.block_start[h as usize];
-        let len = y.len();
-        self.inside[class].add_product(&x[start..start + len], y);
-        for p in 0..high_bits {
-            let p_site = lb + p;
-            if (h >> p) & 1 == 1 {
-                // Up spin p in the high half moves to an empty high site q.
-                for q in (0..high_bits).filter(|&q| (h >> q) & 1 == 0) {
-                    let j = self.coupling[p_site * n + lb + q];
-                    if j == 0.0 {
-                        continue;
-                    }
-                    let other = self.block_start[(h ^ (1 << p) ^ (1 << q)) as usize];
-                    for (out, v) in y.iter_mut().zip(&x[other..other + len]) {
-                        out.re += j * v.re;
-                        out.im += j * v.im;
-                    }
-                }
-                // ... or to an empty low site: one more low bit.
-                let other = self.block_start[(h ^ (1 << p)) as usize];
-                self.to_low[class][p].add_product(&x[other..], y);
-            } else if class > 0 {
-                // An up spin of the low half moves to the empty high site p.
-                let other = self.block_start[(h | (1 << p)) as usize];
-                self.from_low[class][p].add_product(&x[other..], y);
-            }
-        }
-    }
-
-    /// y = H x − b·z for the optional pair (b, z) (the Lanczos recurrence's
-    /// previous vector, folded into the same pass over memory). Returns
-    /// Re⟨x|y⟩, summed block by block in basis order so that it does not
-    /// depend on the thread count.
-    pub(super) fn apply(&self, x: &[Amp], y: &mut [Amp], back: Option<(f64, &[Amp])>) -> f64 {
-        let mut pieces = Vec::with_capacity(self.blocks.len());
+        let mut pieces = Vec::with_capacity(self.tasks.len());
         let mut rest = y;
-        for &(_, class, _) in &self.blocks {
-            let len = binomial(self.low_bits as usize, class);
+        for &(panel, _, rows) in &self.tasks {
+            let len = rows * self.panels[panel].cols;
             let (head, tail) = std::mem::take(&mut rest).split_at_mut(len);
             pieces.push(head);
             rest = tail;
         }
-        let partials: Vec<f64> = pieces
+        let partials: Vec<[LaneSums; B]> = pieces
             .into_par_iter()
-            .zip(self.blocks.par_iter())
-            .with_min_len(BLOCKS_PER_TASK)
-            .map(|(ys, &(h, class, start))| {
-                for (offset, out) in ys.iter_mut().enumerate() {
-                    let a = start + offset;
-                    let diag = self.diagonal[a];
-                    *out = Amp {
-                        re: diag * x[a].re,
-                        im: diag * x[a].im,
-                    };
-                    if let Some((b, z)) = back {
-                        out.re -= b * z[a].re;
-                        out.im -= b * z[a].im;
+            .zip(self.tasks.par_iter())
+            .map(|(ys, &(index, first_row, _))| {
+                let panel = self.panels[index];
+                let c = panel.class;
+                let m = self.sites_up_high(c);
+                let width = panel.cols;
+                let mut sums = [LaneSums::default(); B];
+                for (offset, yr) in ys.chunks_exact_mut(width).enumerate() {
+                    let row = first_row + offset;
+                    let h = self.high_words[m][row];
+                    let begin = panel.start + row * panel.cols;
+                    let xr = &x[begin..begin + width];
+                    yr.fill([0.0; B]);
+                    self.inside[c].add_product::<B>(xr, &self.coupling, yr);
+                    for p in 0..high_bits {
+                        let p_row = &self.coupling[(lb + p) * n..(lb + p + 1) * n];
+                        if (h >> p) & 1 == 1 {
+                            // Up spin p moves to an empty high site q.
+                            for q in (0..high_bits).filter(|&q| (h >> q) & 1 == 0) {
+                                let j = p_row[lb + q];
+                                if j == 0.0 {
+                                    continue;
+                                }
+                                let other = self.row::<B>(x, c, h ^ (1 << p) ^ (1 << q));
+                                for (o, v) in yr.iter_mut().zip(other) {
+                                    for b in 0..B {
+                                        o[b] += j * v[b];
+                                    }
+                                }
+                            }
+                        }
+                    }
+                    // One spin crosses between the halves: every high site
+                    // p that can give (take) a spin contributes the row of
+                    // panel c + 1 (c − 1) with that spin moved; the table
+                    // of low sites is read once for all of them.
+                    for filled in [true, false] {
+                        let class = if filled { c + 1 } else { c.wrapping_sub(1) };
+                        if class > lb {
+                            continue;
+                        }
+                        let mut sources: [&[[f64; B]]; MAX_HALF] = [&[]; MAX_HALF];
+                        let mut m = 0;
+                        for p in (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled) {
+                            sources[m] = self.row::<B>(x, class, h ^ (1 << p));
+                            m += 1;
+                        }
+                        if m == 0 {
+                            continue;
+                        }
+                        let slot = 2 * h as usize + usize::from(filled);
+                        let weights = &self.crossing_weights
+                            [self.crossing_start[slot]..self.crossing_start[slot + 1]];
+                        let table = if filled {
+                            &self.to_low[c]
+                        } else {
+                            &self.from_low[c]
+                        };
+                        table.add_crossing::<B>(&sources[..m], weights, yr);
+                    }
+                    for (k, (out, xv)) in yr.iter_mut().zip(xr).enumerate() {
+                        let a = begin + k;
+                        let d = self.diagonal[a] - shift;
+                        let z = back.map_or([0.0; B], |z| z[a]);
+                        for b in 0..B {
+                            let v = (out[b] + xv[b] * d) * scale - z[b];
+                            out[b] = v;
+                            sums[b].overlap += xv[b] * v;
+                            sums[b].norm_sq += v * v;
+                        }
                     }
                 }
-                self.off_diagonal_block(h, class, x, ys);
-                ys.iter()
-                    .zip(&x[start..])
-                    .map(|(h, x)| x.re * h.re + x.im * h.im)
-                    .sum::<f64>()
+                sums
             })
             .collect();
-        partials.iter().sum()
+        let mut total = [LaneSums::default(); B];
+        for part in &partials {
+            for (t, p) in total.iter_mut().zip(part) {
+                t.overlap += p.overlap;
+                t.norm_sq += p.norm_sq;
+            }
+        }
+        total
+    }
+
+    /// Up spins in the high half of the rows of class `class`.
+    fn sites_up_high(&self, class: usize) -> usize {
+        self.up - class
     }
 }
 
-/// w ← w − α q, returning ‖w‖ (block sums in block order).
-pub(super) fn orthogonalise(w: &mut [Amp], q: &[Amp], alpha: f64) -> f64 {
-    let partials: Vec<f64> = w
-        .par_chunks_mut(ROWS_PER_TASK)
-        .zip(q.par_chunks(ROWS_PER_TASK))
-        .map(|(ws, qs)| {
-            let mut sum = 0.0;
-            for (x, q) in ws.iter_mut().zip(qs) {
-                x.re -= alpha * q.re;
-                x.im -= alpha * q.im;
-                sum += x.re * x.re + x.im * x.im;
+/// Per lane: ‖v‖², summed over a fixed partition in basis order.
+pub(super) fn lane_norms<const B: usize>(v: &[[f64; B]]) -> [f64; B] {
+    let partials: Vec<[f64; B]> = v
+        .par_chunks(TASK_AMPLITUDES)
+        .map(|chunk| {
+            let mut sums = [0.0; B];
+            for lanes in chunk {
+                for (s, a) in sums.iter_mut().zip(lanes) {
+                    *s += a * a;
+                }
             }
-            sum
+            sums
         })
         .collect();
-    partials.iter().sum::<f64>().sqrt()
-}
-
-/// out ← v / s, in parallel.
-pub(super) fn scaled_copy(out: &mut [Amp], v: &[Amp], s: f64) {
-    out.par_chunks_mut(ROWS_PER_TASK)
-        .zip(v.par_chunks(ROWS_PER_TASK))
-        .for_each(|(os, vs)| {
-            for (o, x) in os.iter_mut().zip(vs) {
-                *o = Amp {
-                    re: x.re / s,
-                    im: x.im / s,
-                };
-            }
-        });
-}
-
-/// Σ_q C(offset + c_q, before + q) over the set bits c_1 < c_2 < … of `word`:
-/// the share of the combinatorial rank carried by bits that sit `offset`
-/// places higher in the full word, with `before` set bits below them.
-pub(super) fn rank_share(word: u32, offset: u32, before: u32) -> usize {
-    let mut rank = 0;
-    let mut rest = word;
-    let mut p = before as usize + 1;
-    while rest != 0 {
-        rank += binomial((rest.trailing_zeros() + offset) as usize, p);
-        p += 1;
-        rest &= rest - 1;
+    let mut total = [0.0; B];
+    for part in &partials {
+        for (t, p) in total.iter_mut().zip(part) {
+            *t += p;
+        }
     }
-    rank
-}
-
-pub(super) fn norm(v: &[Amp]) -> f64 {
-    v.iter()
-        .map(|a| a.re * a.re + a.im * a.im)
-        .sum::<f64>()
-        .sqrt()
+    total
 }
