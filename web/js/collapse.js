@@ -153,6 +153,16 @@ function windowed(d, w) {
   return { rows, cols };
 }
 
+/**
+ * Puts a new figure (or none) in place of the old one, whose pending drag
+ * redraw must not land on the new one.
+ * @param {CollapseFigure | null} next
+ */
+function replaceFigure(next) {
+  state.figure?.dispose();
+  state.figure = next;
+}
+
 /** Builds the figure if its data changed, then draws it at the current z. */
 function draw() {
   const d = state.detail;
@@ -165,16 +175,17 @@ function draw() {
     const { rows, cols } = windowed(d, w);
     if (rows.length < 2 || cols.length < 2) {
       state.builtFor = "";
-      state.figure = null;
+      replaceFigure(null);
       note("collapse", rows.length < 2
         ? "A collapse needs at least two times above 0 inside the time window. Widen the window above the plots."
         : "A collapse needs at least two sites inside the |x| window. Widen the window above the plots.");
       return;
     }
     note("collapse", null);
-    state.figure = new CollapseFigure(el);
+    const built = new CollapseFigure(el);
+    replaceFigure(built);
     const t = rows.map((i) => d.t[i] ?? 1);
-    state.figure.setData({
+    built.setData({
       x: cols.map((j) => d.x[j] ?? 0),
       t,
       C: rows.map((i) => cols.map((j) => d.C[i]?.[j] ?? null)),
@@ -672,7 +683,7 @@ export function wireCollapse(api, initial) {
     }
     state.best = null;
     state.quality = null;
-    state.figure = null;
+    replaceFigure(null);
     state.builtFor = "";
     qualityRequests.forget();
     modelRequests.forget();

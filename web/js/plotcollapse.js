@@ -509,6 +509,19 @@ export class CollapseFigure {
   }
 
   /**
+   * Forgets a drag in progress without drawing: the figure is being replaced
+   * (another dataset, window or y axis), and a late redraw of this one would
+   * overwrite the new figure.
+   */
+  dispose() {
+    window.clearTimeout(this.settleTimer);
+    this.settleTimer = 0;
+    this.live = false;
+    this.canvas?.remove();
+    this.canvas = null;
+  }
+
+  /**
    * Ends a drag, if one is drawn, and draws the whole figure with plotly.
    * @returns {Promise<HTMLElement>}
    */
