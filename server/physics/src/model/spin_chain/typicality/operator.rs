@@ -79,20 +79,53 @@ impl RowTable {
 }
 
 impl RowTable {
-    /// y_r += Σ_{(r', q)} Σ_i j[q · m + i] · sources_i[r'] over the rows of
-    /// y (m sources), lane by lane: one table entry serves every source.
+    /// y_r += Σ_{(r', q)} Σ_i j[q · m + i] · g[r' · m + i] over the rows of
+    /// y, lane by lane, where g holds the m source rows column by column:
+    /// one table entry serves every source, and the sources of one column
+    /// are contiguous.
+    fn add_crossing<const B: usize>(
+        &self,
+        g: &[[f64; B]],
+        m: usize,
+        j: &[f64],
+        y: &mut [[f64; B]],
+    ) {
+        // A fixed count of sources lets the compiler unroll the inner loop
+        // (a factor of about three fewer instructions than a loop over m).
+        match m {
+            1 => self.add_crossing_fixed::<B, 1>(g, j, y),
+            2 => self.add_crossing_fixed::<B, 2>(g, j, y),
+            3 => self.add_crossing_fixed::<B, 3>(g, j, y),
+            4 => self.add_crossing_fixed::<B, 4>(g, j, y),
+            5 => self.add_crossing_fixed::<B, 5>(g, j, y),
+            6 => self.add_crossing_fixed::<B, 6>(g, j, y),
+            7 => self.add_crossing_fixed::<B, 7>(g, j, y),
+            8 => self.add_crossing_fixed::<B, 8>(g, j, y),
+            9 => self.add_crossing_fixed::<B, 9>(g, j, y),
+            10 => self.add_crossing_fixed::<B, 10>(g, j, y),
+            11 => self.add_crossing_fixed::<B, 11>(g, j, y),
+            _ => self.add_crossing_fixed::<B, MAX_HALF>(g, j, y),
+        }
+    }
+
+    /// [`RowTable::add_crossing`] for exactly M sources.
     #[inline]
-    fn add_crossing<const B: usize>(&self, sources: &[&[[f64; B]]], j: &[f64], y: &mut [[f64; B]]) {
-        let m = sources.len();
+    fn add_crossing_fixed<const B: usize, const M: usize>(
+        &self,
+        g: &[[f64; B]],
+        j: &[f64],
+        y: &mut [[f64; B]],
+    ) {
         for (r, out) in y.iter_mut().enumerate() {
             let mut acc = [0.0; B];
             let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
             for &(col, q) in &self.entries[from..to] {
-                let weights = &j[q as usize * m..(q as usize + 1) * m];
-                for (source, &weight) in sources.iter().zip(weights) {
-                    let v = &source[col as usize];
+                let (col, q) = (col as usize * M, q as usize * M);
+                let weights: &[f64; M] = j[q..q + M].try_into().expect("M weights");
+                let values: &[[f64; B]; M] = g[col..col + M].try_into().expect("M sources");
+                for i in 0..M {
                     for b in 0..B {
-                        acc[b] += weight * v[b];
+                        acc[b] += weights[i] * values[i][b];
                     }
                 }
             }
@@ -337,6 +370,7 @@ impl SectorOperator {
                 let m = self.sites_up_high(c);
                 let width = panel.cols;
                 let mut sums = [LaneSums::default(); B];
+                let mut gathered: Vec<[f64; B]> = Vec::new();
                 for (offset, yr) in ys.chunks_exact_mut(width).enumerate() {
                     let row = first_row + offset;
                     let h = self.high_words[m][row];
@@ -371,14 +405,21 @@ impl SectorOperator {
                         if class > lb {
                             continue;
                         }
-                        let mut sources: [&[[f64; B]]; MAX_HALF] = [&[]; MAX_HALF];
-                        let mut m = 0;
-                        for p in (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled) {
-                            sources[m] = self.row::<B>(x, class, h ^ (1 << p));
-                            m += 1;
-                        }
+                        let sites = (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled);
+                        let m = sites.clone().count();
                         if m == 0 {
                             continue;
+                        }
+                        // The m source rows, column by column.
+                        let cols =
+                            self.panels[self.panel_of_class[class].expect("valid class")].cols;
+                        gathered.clear();
+                        gathered.resize(cols * m, [0.0; B]);
+                        for (i, p) in sites.enumerate() {
+                            let source = self.row::<B>(x, class, h ^ (1 << p));
+                            for (col, v) in source.iter().enumerate() {
+                                gathered[col * m + i] = *v;
+                            }
                         }
                         let slot = 2 * h as usize + usize::from(filled);
                         let weights = &self.crossing_weights
@@ -388,7 +429,7 @@ impl SectorOperator {
                         } else {
                             &self.from_low[c]
                         };
-                        table.add_crossing::<B>(&sources[..m], weights, yr);
+                        table.add_crossing::<B>(&gathered, m, weights, yr);
                     }
                     for (k, (out, xv)) in yr.iter_mut().zip(xr).enumerate() {
                         let a = begin + k;
