@@ -54,6 +54,10 @@ export async function roomChecks({ page, args, gid, shots }) {
      */
     const presentationShown = async (label, tag) => {
       await page.waitForTimeout(400);
+      // On a loaded machine the figures may still be refitting to the new size.
+      await page
+        .waitForFunction(() => document.documentElement.scrollWidth <= window.innerWidth, null, { timeout: 3000 })
+        .catch(() => undefined);
       const shown = await page.evaluate(() => {
         const plot = document.querySelector("#panel-collapse")?.getBoundingClientRect();
         const banner = document.querySelector("#present-banner");
