@@ -315,17 +315,15 @@ fn combine<const B: usize>(
                     let c = coefficients[n];
                     let term = &ring[n % window][rows.clone()];
                     // c_n is real for even n and imaginary for odd n.
+                    let outs = piece.as_flattened_mut().iter_mut();
+                    let terms = term.as_flattened();
                     if n % 2 == 0 {
-                        for (o, t) in piece.iter_mut().zip(term) {
-                            for lane in 0..B {
-                                o[lane].re += c.re * t[lane];
-                            }
+                        for (o, t) in outs.zip(terms) {
+                            o.re += c.re * t;
                         }
                     } else {
-                        for (o, t) in piece.iter_mut().zip(term) {
-                            for lane in 0..B {
-                                o[lane].im += c.im * t[lane];
-                            }
+                        for (o, t) in outs.zip(terms) {
+                            o.im += c.im * t;
                         }
                     }
                 }

@@ -79,6 +79,33 @@ impl RowTable {
 }
 
 impl RowTable {
+    /// [`RowTable::add_product`] on two rows of one panel at once.
+    #[inline]
+    fn add_product_pair<const B: usize>(
+        &self,
+        x: [&[[f64; B]]; 2],
+        j: &[f64],
+        y: [&mut [[f64; B]]; 2],
+    ) {
+        let [y_a, y_b] = y;
+        for (r, (out_a, out_b)) in y_a.iter_mut().zip(y_b.iter_mut()).enumerate() {
+            let mut acc = [[0.0; B]; 2];
+            let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
+            for &(col, k) in &self.entries[from..to] {
+                let weight = j[k as usize];
+                let (a, b) = (&x[0][col as usize], &x[1][col as usize]);
+                for lane in 0..B {
+                    acc[0][lane] += weight * a[lane];
+                    acc[1][lane] += weight * b[lane];
+                }
+            }
+            for lane in 0..B {
+                out_a[lane] += acc[0][lane];
+                out_b[lane] += acc[1][lane];
+            }
+        }
+    }
+
     /// y_r += Σ_{(r', q)} Σ_i j[q · m + i] · g[r' · m + i] over the rows of
     /// y, lane by lane, where g holds the m source rows column by column:
     /// one table entry serves every source, and the sources of one column
@@ -371,13 +398,27 @@ impl SectorOperator {
                 let width = panel.cols;
                 let mut sums = [LaneSums::default(); B];
                 let mut gathered: Vec<[f64; B]> = Vec::new();
+                // Inside the low half: the class's table, two rows at a time
+                // so that every entry is decoded once for both.
+                ys.fill([0.0; B]);
+                let first = panel.start + first_row * panel.cols;
+                let task_x = &x[first..first + ys.len()];
+                let mut pairs = ys.chunks_exact_mut(2 * width);
+                let mut x_pairs = task_x.chunks_exact(2 * width);
+                for (y2, x2) in (&mut pairs).zip(&mut x_pairs) {
+                    let (y_a, y_b) = y2.split_at_mut(width);
+                    let (x_a, x_b) = x2.split_at(width);
+                    self.inside[c].add_product_pair::<B>([x_a, x_b], &self.coupling, [y_a, y_b]);
+                }
+                let (y_rest, x_rest) = (pairs.into_remainder(), x_pairs.remainder());
+                if !y_rest.is_empty() {
+                    self.inside[c].add_product::<B>(x_rest, &self.coupling, y_rest);
+                }
                 for (offset, yr) in ys.chunks_exact_mut(width).enumerate() {
                     let row = first_row + offset;
                     let h = self.high_words[m][row];
                     let begin = panel.start + row * panel.cols;
                     let xr = &x[begin..begin + width];
-                    yr.fill([0.0; B]);
-                    self.inside[c].add_product::<B>(xr, &self.coupling, yr);
                     for p in 0..high_bits {
                         let p_row = &self.coupling[(lb + p) * n..(lb + p + 1) * n];
                         if (h >> p) & 1 == 1 {
@@ -388,10 +429,10 @@ impl SectorOperator {
                                     continue;
                                 }
                                 let other = self.row::<B>(x, c, h ^ (1 << p) ^ (1 << q));
-                                for (o, v) in yr.iter_mut().zip(other) {
-                                    for b in 0..B {
-                                        o[b] += j * v[b];
-                                    }
+                                for (o, v) in
+                                    yr.as_flattened_mut().iter_mut().zip(other.as_flattened())
+                                {
+                                    *o += j * v;
                                 }
                             }
                         }
