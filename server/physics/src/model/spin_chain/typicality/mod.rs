@@ -223,14 +223,14 @@ pub fn vectors_in_sector(sites: usize, up: usize, samples: usize) -> usize {
 
 /// The memory plan of a typicality run, decided from the largest sector
 /// (d = C(N, ⌊N/2⌋)): [`MAX_LANES`] vectors together when their window of
-/// [`WINDOW`] Chebyshev terms and every output state fit `limit_bytes`, else
+/// `WINDOW` (12) Chebyshev terms and every output state fit `limit_bytes`, else
 /// one vector at a time; then fewer output states held at once (the
 /// expansion restarts between them) and a shorter window, before it
 /// refuses.
 ///
 /// # Errors
 /// [`SpinChainError::MemoryLimit`] when not even one lane with a window of
-/// [`MIN_WINDOW`] terms and one output state fits;
+/// `MIN_WINDOW` (3) terms and one output state fits;
 /// [`SpinChainError::TooLargeForTypicality`] beyond [`MAX_TYPICAL_SITES`]
 /// sites.
 pub fn memory_plan(
