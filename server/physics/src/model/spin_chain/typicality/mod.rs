@@ -320,12 +320,15 @@ fn check_options(
     times: &[f64],
     options: &TypicalityOptions,
 ) -> Result<MemoryPlan, SpinChainError> {
-    let sites = chain.sites();
-    if sites > MAX_TYPICAL_SITES {
-        return Err(SpinChainError::TooLargeForTypicality {
-            sites,
-            max: MAX_TYPICAL_SITES,
-        });
+    // The plan refuses a chain beyond the method's size first.
+    let plan = memory_plan(
+        chain,
+        options.samples,
+        times.len(),
+        options.memory_limit_bytes,
+    );
+    if let Err(e @ SpinChainError::TooLargeForTypicality { .. }) = plan {
+        return Err(e);
     }
     if options.samples < 2 {
         return Err(SpinChainError::TooFewSamples(options.samples));
@@ -335,12 +338,7 @@ fn check_options(
         return Err(SpinChainError::BadTolerance(tol));
     }
     chain.check_source_and_times(source, times)?;
-    memory_plan(
-        chain,
-        options.samples,
-        times.len(),
-        options.memory_limit_bytes,
-    )
+    plan
 }
 
 /// Propagates the vectors `select` keeps (out of [`vector_ids`]) and returns
