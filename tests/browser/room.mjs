@@ -81,6 +81,42 @@ export async function roomChecks({ page, args, gid, shots }) {
       const [zValue, zErr] = [Number(z[1]), Number(z[2])];
       assert(zValue > 0.5 && zValue < 3 && zErr > 0 && zErr < 1, `banner z = ${zValue} ± ${zErr}`);
       measurements.push(`banner at ${label}: ${banner.replace(/\s+/g, " ")}`);
+      // The best fit above left its S(z) scan beside the collapse; the
+      // presentation's larger lettering must not squeeze it into a sliver.
+      await page
+        .waitForFunction(
+          () => {
+            const el = /** @type {any} */ (document.querySelector("#collapse-inset"));
+            return el !== null && !el.hidden && el._fullLayout !== undefined && Math.abs(el._fullLayout.height - el.offsetHeight) <= 1;
+          },
+          null,
+          { timeout: 3000 },
+        )
+        .catch(() => undefined);
+      const inset = await page.evaluate(() => {
+        const el = /** @type {any} */ (document.querySelector("#collapse-inset"));
+        if (el === null || el.hidden || el._fullLayout === undefined) return null;
+        const box = el.getBoundingClientRect();
+        const title = el.querySelector(".gtitle")?.getBoundingClientRect() ?? null;
+        const tick = el.querySelector(".xtick text");
+        return {
+          box: { w: box.width, h: box.height, right: box.right },
+          drawn: { w: el._fullLayout.width, h: el._fullLayout.height },
+          area: { w: el._fullLayout._size.w, h: el._fullLayout._size.h },
+          titleRight: title === null ? null : title.right,
+          tickPx: tick === null ? 0 : parseFloat(getComputedStyle(tick).fontSize),
+        };
+      });
+      assert(inset !== null, "the S(z) inset is not shown after a best fit");
+      const s = /** @type {NonNullable<typeof inset>} */ (inset);
+      assert(Math.abs(s.drawn.w - s.box.w) <= 1 && Math.abs(s.drawn.h - s.box.h) <= 1, `the S(z) inset is drawn ${Math.round(s.drawn.w)} × ${Math.round(s.drawn.h)} px in a ${Math.round(s.box.w)} × ${Math.round(s.box.h)} px box`);
+      // Room for a curve one can read from the back of a room: a plot area of
+      // at least 240 × 120 px and tick labels of 13 px or more (common
+      // practice, no source).
+      assert(s.area.w >= 240 && s.area.h >= 120, `the S(z) inset's plot area is ${Math.round(s.area.w)} × ${Math.round(s.area.h)} px`);
+      assert(s.tickPx >= 13, `the S(z) inset's tick labels are ${s.tickPx} px`);
+      assert(s.titleRight !== null && s.titleRight <= s.box.right + 1, "the S(z) inset's title is cut at its right edge");
+      measurements.push(`S(z) inset at ${label}: box ${Math.round(s.box.w)} × ${Math.round(s.box.h)} px, plot area ${Math.round(s.area.w)} × ${Math.round(s.area.h)} px, ticks ${s.tickPx} px`);
       shots.push(await sideShot(page, args.screenshot, `present-${tag}`));
       await page.keyboard.press("ArrowRight");
       await page.waitForFunction(() => document.querySelector("#tab-residual")?.getAttribute("aria-selected") === "true", null, { timeout: 3000 });

@@ -531,14 +531,31 @@ export function drawQualityScan(el, input) {
     font: { family: FONT_FAMILY, size: fs(13), color: INK },
     paper_bgcolor: "rgba(255,255,255,0.92)",
     plot_bgcolor: "#ffffff",
-    margin: { l: 52, r: 8, t: 26, b: 30 },
+    // The margins grow with the lettering, so that in presentation mode with
+    // large text the title and tick labels do not eat the plot area.
+    margin: { l: fs(44), r: fs(10), t: fs(28), b: fs(26) },
     showlegend: false,
-    title: { text: "quality S(z) — lower is better", font: { size: fs(13) }, x: 0.02, xanchor: "left", y: 0.97 },
+    title: { text: "quality S(z) — lower is better", font: { size: fs(13) }, x: 0.02, xanchor: "left", y: 1, yanchor: "top", pad: { t: fs(6) } },
     xaxis: { ...small, title: { text: "" } },
     yaxis: { ...small, ...(spread > 30 ? { type: "log", ...logTicks(100) } : { type: "linear", nticks: 4 }) },
     shapes,
   };
-  return Plotly.react(el, traces, layout, { displayModeBar: false, responsive: true, staticPlot: false });
+  return Plotly.react(el, traces, layout, { displayModeBar: false, responsive: true, staticPlot: false }).then(fitIfStale);
+}
+
+/**
+ * Plotly measures its container only when a figure is first drawn or the
+ * window resizes; a redraw after the container changed size (presentation
+ * mode, large text, the side panel) would keep the old size and squeeze the
+ * plot into a corner of its box. This refits such a figure once.
+ * @param {HTMLElement} el a drawn figure
+ * @returns {Promise<HTMLElement>}
+ */
+function fitIfStale(el) {
+  const drawn = /** @type {{_fullLayout?: {width?: number, height?: number}}} */ (/** @type {unknown} */ (el))._fullLayout;
+  // Plotly sizes a figure to its container's border box.
+  const stale = drawn !== undefined && el.offsetWidth > 0 && (Math.abs((drawn.width ?? 0) - el.offsetWidth) > 1 || Math.abs((drawn.height ?? 0) - el.offsetHeight) > 1);
+  return stale ? Promise.resolve(Plotly.Plots.resize(el)).then(() => el) : Promise.resolve(el);
 }
 
 /**
