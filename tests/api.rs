@@ -156,6 +156,83 @@ async fn pages_carry_security_headers_and_content_addressed_assets() {
     );
 }
 
+/// The page names the first figure's data in a `Link` header so the browser
+/// fetches it with the page; each named URL must be one the page's script
+/// asks for, answering 200, or the browser fetches for nothing.
+#[tokio::test]
+async fn the_page_preloads_the_data_of_its_first_figure() {
+    let app = app().await;
+    let (edit, view) = new_session(&app.router).await;
+    let link_of = |headers: &axum::http::HeaderMap| {
+        headers
+            .get("link")
+            .expect("a Link header")
+            .to_str()
+            .expect("ascii")
+            .to_string()
+    };
+    // No dataset yet: the session and its (empty) list only.
+    let (status, _, headers) = send(&app.router, Method::GET, &format!("/s/{view}"), "").await;
+    assert_eq!(status, StatusCode::OK);
+    let link = link_of(&headers);
+    assert_eq!(
+        link,
+        format!(
+            "</api/s/{view}>; rel=preload; as=fetch; crossorigin, \
+             </api/s/{view}/datasets>; rel=preload; as=fetch; crossorigin"
+        )
+    );
+    let uri = format!("/api/s/{edit}/datasets?name=a.csv");
+    let (_, first) = send_json(&app.router, Method::POST, &uri, SMALL_CSV).await;
+    let uri = format!("/api/s/{edit}/datasets?name=b.csv");
+    let (status, _) = send_json(&app.router, Method::POST, &uri, SMALL_CSV).await;
+    assert_eq!(status, StatusCode::CREATED);
+    let first = first["id"].as_i64().expect("id");
+    let (_, _, headers) = send(&app.router, Method::GET, &format!("/s/{view}"), "").await;
+    let link = link_of(&headers);
+    let urls: Vec<&str> = link
+        .split(", ")
+        .map(|part| {
+            assert!(
+                part.ends_with(">; rel=preload; as=fetch; crossorigin"),
+                "{part}"
+            );
+            part.trim_start_matches('<').split('>').next().expect("url")
+        })
+        .collect();
+    // The page opens on the oldest dataset, the first of the list.
+    let (_, list) = send_json(
+        &app.router,
+        Method::GET,
+        &format!("/api/s/{view}/datasets"),
+        "",
+    )
+    .await;
+    assert_eq!(list[0]["id"].as_i64(), Some(first));
+    assert_eq!(
+        urls,
+        vec![
+            format!("/api/s/{view}"),
+            format!("/api/s/{view}/datasets"),
+            format!("/api/s/{view}/datasets/{first}"),
+        ]
+    );
+    for url in urls {
+        let (status, _, _) = send(&app.router, Method::GET, url, "").await;
+        assert_eq!(status, StatusCode::OK, "{url}");
+    }
+    // An unknown session gets no page and names nothing.
+    let (status, _, headers) = send(
+        &app.router,
+        Method::GET,
+        "/s/0123456789abcdef0123456789abcdef",
+        "",
+    )
+    .await;
+    assert_eq!(status, StatusCode::NOT_FOUND);
+    assert!(headers.get("link").is_none());
+}
+
 #[tokio::test]
 async fn uploads_over_the_limit_get_413() {
     let config = spreadscope::api::ApiConfig {

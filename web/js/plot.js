@@ -120,7 +120,12 @@ export function drawMap(el, input) {
     ...range,
   };
   const layout = baseLayout(el, "x (sites)", timeTitle(timeUnit), { yType: tScale });
-  layout.margin = { l: 72, r: 16, t: 20, b: 56 };
+  // Margins that already hold the time labels, the colour bar and its labels
+  // at every lettering size: plotly then finds nothing to push and skips the
+  // second layout pass its automatic margins would cost (a good share of
+  // the first figure's drawing). Automatic margins stay on for labels
+  // wider than these.
+  layout.margin = { l: fs(58) + 18, r: fs(100) + 24, t: 20, b: fs(56) + 14 };
   layout.uirevision = input.revision;
   // The windows are outlined, not shaded, so the colours of the map stay true.
   layout.shapes = windowOutline(input.windows, x, t);

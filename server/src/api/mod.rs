@@ -225,8 +225,17 @@ async fn home() -> Response {
 
 async fn page(State(service): State<Service>, Path(token): Path<String>) -> Response {
     match service.access(&token).await {
-        Ok(_) => match assets::index_html() {
-            Some(html) => ([(header::CACHE_CONTROL, "no-store")], Html(html)).into_response(),
+        Ok(access) => match assets::index_html() {
+            Some(html) => {
+                // A failed look-up only costs the head start, never the page.
+                let first = service.first_dataset_id(&access).await.ok().flatten();
+                let mut response =
+                    ([(header::CACHE_CONTROL, "no-store")], Html(html)).into_response();
+                if let Ok(link) = HeaderValue::from_str(&data_preloads(&token, first)) {
+                    response.headers_mut().insert(header::LINK, link);
+                }
+                response
+            }
             None => (StatusCode::NOT_FOUND, "front end missing from this build").into_response(),
         },
         Err(ServiceError::NotFound) => (
@@ -236,6 +245,25 @@ async fn page(State(service): State<Service>, Path(token): Path<String>) -> Resp
             .into_response(),
         Err(e) => ApiError(e).into_response(),
     }
+}
+
+/// The `Link` header that starts the first figure's data requests with the
+/// page itself: the session, its dataset list and the dataset the page opens
+/// on when the address names none. The browser fetches them while the
+/// modules and the plotting library arrive, and `web/js/api.js`'s requests
+/// (same URLs, same mode) take the answers instead of asking again. A page
+/// opened on another dataset (`#dataset=…`, which never reaches the server)
+/// leaves the last one unused.
+fn data_preloads(token: &str, first_dataset: Option<i64>) -> String {
+    let base = format!("/api/s/{token}");
+    let mut urls = vec![base.clone(), format!("{base}/datasets")];
+    if let Some(id) = first_dataset {
+        urls.push(format!("{base}/datasets/{id}"));
+    }
+    urls.iter()
+        .map(|u| format!("<{u}>; rel=preload; as=fetch; crossorigin"))
+        .collect::<Vec<_>>()
+        .join(", ")
 }
 
 async fn asset(Path((hash, path)): Path<(String, String)>) -> Response {

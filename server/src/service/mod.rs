@@ -405,6 +405,16 @@ impl Service {
             .collect())
     }
 
+    /// The id of the dataset the page opens on when its address names none
+    /// (the first of `datasets`), read without decoding any map.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub async fn first_dataset_id(&self, access: &Access) -> ServiceResult<Option<i64>> {
+        let session_id = access.session.id;
+        self.db(move |s| s.first_dataset_id(session_id)).await
+    }
+
     /// One dataset with its map.
     ///
     /// # Errors

@@ -297,6 +297,22 @@ impl Store {
             .collect()
     }
 
+    /// The id of a session's oldest dataset (the one `datasets` lists first),
+    /// without reading any map.
+    ///
+    /// # Errors
+    /// Database failure.
+    pub fn first_dataset_id(&self, session_id: i64) -> StoreResult<Option<i64>> {
+        let conn = self.read();
+        Ok(conn
+            .query_row(
+                "SELECT id FROM datasets WHERE session_id = ?1 ORDER BY id LIMIT 1",
+                params![session_id],
+                |r| r.get(0),
+            )
+            .optional()?)
+    }
+
     /// One dataset of a session.
     ///
     /// # Errors
