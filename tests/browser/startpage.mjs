@@ -21,14 +21,28 @@ export async function startPageChecks(origin, profile, dashboard, timeout) {
   try {
     const page = context.pages()[0] ?? (await context.newPage());
     await check("first load of the dashboard in a fresh browser profile (measured)", async () => {
-      const started = Date.now();
+      // Timed in the page, from navigation start to the animation frame that
+      // paints the first figure. Timing from outside would also count the
+      // work the page starts right after that frame (the hidden views are
+      // drawn then), since the browser answers the test only between tasks.
+      await context.addInitScript(() => {
+        const seen = () => {
+          if (document.querySelector(".js-plotly-plot .main-svg") === null) return;
+          observer.disconnect();
+          requestAnimationFrame(() => {
+            /** @type {any} */ (window).__firstFigure = performance.now();
+          });
+        };
+        const observer = new MutationObserver(seen);
+        observer.observe(document, { childList: true, subtree: true });
+      });
       await page.goto(dashboard, { waitUntil: "domcontentloaded" });
-      await page.waitForFunction(() => document.querySelector(".js-plotly-plot .main-svg") !== null, undefined, { timeout });
-      const drawn = Date.now() - started;
+      await page.waitForFunction(() => /** @type {any} */ (window).__firstFigure !== undefined, undefined, { timeout });
+      const drawn = Math.round(await page.evaluate(() => /** @type {number} */ (/** @type {any} */ (window).__firstFigure)));
       const scripts = await page.evaluate(() =>
         performance.getEntriesByType("resource").filter((r) => r.name.includes("/vendor/")).map((r) => /** @type {PerformanceResourceTiming} */ (r).encodedBodySize),
       );
-      measurements.push(`first load to the first drawn figure: ${drawn} ms (plotting bundle ${scripts.join(", ")} bytes)`);
+      measurements.push(`first load, navigation start to the frame that paints the first figure: ${drawn} ms (plotting bundle ${scripts.join(", ")} bytes)`);
     });
     await check("the dashboard offers the whole session as an archive, and the start page imports it as a new session", async () => {
       const href = await page.locator("#archive-link").getAttribute("href");
