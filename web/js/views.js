@@ -431,14 +431,18 @@ export function showDataset(detail) {
   }
   fillTimeOptions();
   // The views on screen first; the others after the next frame has been
-  // painted, so the first figure does not wait for the hidden ones.
+  // painted, so the first figure does not wait for the hidden ones, and one
+  // per task, so that a click or a key between them is not kept waiting for
+  // all of them (each is a cold plotly drawing on a first load).
   const hidden = GRID_VIEWS.filter((view) => !isVisible(view));
   for (const view of GRID_VIEWS) if (isVisible(view)) DRAW[view]();
-  window.requestAnimationFrame(() =>
-    window.setTimeout(() => {
-      if (state.detail === detail) for (const view of hidden) DRAW[view]();
-    }, 0),
-  );
+  const drawNextHidden = () => {
+    const view = hidden.shift();
+    if (view === undefined || state.detail !== detail) return;
+    DRAW[view]();
+    window.setTimeout(drawNextHidden, 0);
+  };
+  window.requestAnimationFrame(() => window.setTimeout(drawNextHidden, 0));
   emit("dataset", detail);
 }
 
