@@ -216,7 +216,7 @@ impl Propagator<'_> {
         start: &[[f64; B]],
         times: &[f64],
         tick: &mut dyn FnMut(f64),
-        mut observe: impl FnMut(&[usize], &[Vec<[Amp; B]>]),
+        mut observe: impl FnMut(&[usize], &[State<B>]),
     ) -> Result<Propagated, SpinChainError> {
         let len = start.len();
         let window = self.window.max(3);
@@ -238,7 +238,7 @@ impl Propagator<'_> {
             let end = (first + self.slots.max(1)).min(times.len());
             let stretch = &expansions[first..end];
             let terms = stretch.iter().map(|(c, _)| c.len()).max().unwrap_or(1);
-            let mut outputs = vec![vec![[Amp::default(); B]; len]; end - first];
+            let mut outputs = vec![State::<B>::zeros(len); end - first];
             let mut ring: Vec<Vec<[f64; B]>> = vec![start.to_vec()];
             let mut flushed = 0;
             for n in 0..terms {
@@ -288,6 +288,30 @@ impl Propagator<'_> {
     }
 }
 
+/// A complex output state of `B` lanes, real and imaginary parts stored
+/// apart so that adding a real Chebyshev term into either is a contiguous
+/// scaled sum.
+#[derive(Debug, Clone)]
+pub(super) struct State<const B: usize> {
+    pub(super) re: Vec<[f64; B]>,
+    pub(super) im: Vec<[f64; B]>,
+}
+
+impl<const B: usize> State<B> {
+    fn zeros(len: usize) -> Self {
+        Self {
+            re: vec![[0.0; B]; len],
+            im: vec![[0.0; B]; len],
+        }
+    }
+
+    /// The amplitude of basis state `a` in lane `lane`.
+    #[cfg(test)]
+    pub(super) fn amp(&self, a: usize, lane: usize) -> Amp {
+        Amp::new(self.re[a][lane], self.im[a][lane])
+    }
+}
+
 /// outputs[l] += Σ_{n ∈ terms} c_l[n] T_n, block by block over the rows so
 /// that every stored term is read from memory once for all outputs.
 fn combine<const B: usize>(
@@ -295,13 +319,18 @@ fn combine<const B: usize>(
     window: usize,
     terms: std::ops::Range<usize>,
     expansions: &[(Vec<Amp>, f64)],
-    outputs: &mut [Vec<[Amp; B]>],
+    outputs: &mut [State<B>],
 ) {
     let len = ring[0].len();
     let blocks = len.div_ceil(COMBINE_ROWS);
-    let mut per_block: Vec<Vec<&mut [[Amp; B]]>> = (0..blocks).map(|_| Vec::new()).collect();
+    type Piece<'a, const B: usize> = (&'a mut [[f64; B]], &'a mut [[f64; B]]);
+    let mut per_block: Vec<Vec<Piece<'_, B>>> = (0..blocks).map(|_| Vec::new()).collect();
     for out in outputs.iter_mut() {
-        for (b, piece) in out.chunks_mut(COMBINE_ROWS).enumerate() {
+        let pieces = out
+            .re
+            .chunks_mut(COMBINE_ROWS)
+            .zip(out.im.chunks_mut(COMBINE_ROWS));
+        for (b, piece) in pieces.enumerate() {
             per_block[b].push(piece);
         }
     }
@@ -310,44 +339,48 @@ fn combine<const B: usize>(
         .enumerate()
         .for_each(|(b, mut pieces)| {
             let rows = b * COMBINE_ROWS..(b * COMBINE_ROWS + COMBINE_ROWS).min(len);
-            for (piece, (coefficients, _)) in pieces.iter_mut().zip(expansions) {
+            for ((re, im), (coefficients, _)) in pieces.iter_mut().zip(expansions) {
                 for n in terms.start..terms.end.min(coefficients.len()) {
-                    let c = coefficients[n];
-                    let term = &ring[n % window][rows.clone()];
+                    let term = ring[n % window][rows.clone()].as_flattened();
                     // c_n is real for even n and imaginary for odd n.
-                    let outs = piece.as_flattened_mut().iter_mut();
-                    let terms = term.as_flattened();
                     if n % 2 == 0 {
-                        for (o, t) in outs.zip(terms) {
-                            o.re += c.re * t;
-                        }
+                        add_scaled(re.as_flattened_mut(), coefficients[n].re, term);
                     } else {
-                        for (o, t) in outs.zip(terms) {
-                            o.im += c.im * t;
-                        }
+                        add_scaled(im.as_flattened_mut(), coefficients[n].im, term);
                     }
                 }
             }
         });
 }
 
+/// out += c · term, element by element; compiled once more for AVX2 and
+/// chosen at run time (same operations in the same order, so same bits).
+#[multiversion::multiversion(targets("x86_64+avx2"))]
+fn add_scaled(out: &mut [f64], c: f64, term: &[f64]) {
+    for (o, t) in out.iter_mut().zip(term) {
+        *o += c * t;
+    }
+}
+
 /// ⟨ψ_b|σᶻ_i|ψ_b⟩/⟨ψ_b|ψ_b⟩ for every lane b and site i, `[b][i]`, with the
 /// basis words `states`; block sums are added in block order, so the
 /// result depends on neither the thread count nor the other lanes.
 pub(super) fn magnetisation_ratios<const B: usize>(
-    psi: &[[Amp; B]],
+    psi: &State<B>,
     states: &[u32],
     sites: usize,
 ) -> Vec<Vec<f64>> {
     let width = sites + 1;
     let partials: Vec<Vec<f64>> = psi
+        .re
         .par_chunks(MEASURE_ROWS)
+        .zip(psi.im.par_chunks(MEASURE_ROWS))
         .zip(states.par_chunks(MEASURE_ROWS))
-        .map(|(amplitudes, words)| {
+        .map(|((re, im), words)| {
             let mut sums = vec![0.0; B * width];
-            for (lanes, &word) in amplitudes.iter().zip(words) {
-                for (b, a) in lanes.iter().enumerate() {
-                    let weight = a.norm_sqr();
+            for ((re, im), &word) in re.iter().zip(im).zip(words) {
+                for b in 0..B {
+                    let weight = re[b] * re[b] + im[b] * im[b];
                     let acc = &mut sums[b * width..(b + 1) * width];
                     acc[sites] += weight;
                     let mut bits = word;

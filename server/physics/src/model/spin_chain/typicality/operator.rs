@@ -57,51 +57,35 @@ impl RowTable {
         Self { rows, entries }
     }
 
-    /// y_r += Σ j[k] x_{r'} over the rows of y, lane by lane (`B` lanes
-    /// interleaved: amplitude of row r, lane b at r·B + b).
-    #[inline]
-    fn add_product<const B: usize>(&self, x: &[[f64; B]], j: &[f64], y: &mut [[f64; B]]) {
-        for (r, out) in y.iter_mut().enumerate() {
-            let mut acc = [0.0; B];
-            let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
-            for &(col, k) in &self.entries[from..to] {
-                let weight = j[k as usize];
-                let src = &x[col as usize];
-                for b in 0..B {
-                    acc[b] += weight * src[b];
-                }
-            }
-            for b in 0..B {
-                out[b] += acc[b];
-            }
-        }
-    }
-}
-
-impl RowTable {
-    /// [`RowTable::add_product`] on two rows of one panel at once.
-    #[inline]
-    fn add_product_pair<const B: usize>(
+    /// y_r += Σ j[k] x_{r'} over the rows of R rows of one panel at once,
+    /// lane by lane (`B` lanes interleaved: amplitude of row r, lane b at
+    /// r·B + b), so that every table entry and its coupling are read once
+    /// for all of them.
+    #[inline(always)]
+    fn add_product_rows<const B: usize, const R: usize>(
         &self,
-        x: [&[[f64; B]]; 2],
+        x: [&[[f64; B]]; R],
         j: &[f64],
-        y: [&mut [[f64; B]]; 2],
+        y: [&mut [[f64; B]]; R],
     ) {
-        let [y_a, y_b] = y;
-        for (r, (out_a, out_b)) in y_a.iter_mut().zip(y_b.iter_mut()).enumerate() {
-            let mut acc = [[0.0; B]; 2];
+        let width = y[0].len();
+        let mut y = y;
+        for r in 0..width {
+            let mut acc = [[0.0; B]; R];
             let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
             for &(col, k) in &self.entries[from..to] {
                 let weight = j[k as usize];
-                let (a, b) = (&x[0][col as usize], &x[1][col as usize]);
-                for lane in 0..B {
-                    acc[0][lane] += weight * a[lane];
-                    acc[1][lane] += weight * b[lane];
+                for (sum, row) in acc.iter_mut().zip(&x) {
+                    let v = &row[col as usize];
+                    for lane in 0..B {
+                        sum[lane] += weight * v[lane];
+                    }
                 }
             }
-            for lane in 0..B {
-                out_a[lane] += acc[0][lane];
-                out_b[lane] += acc[1][lane];
+            for (out, sum) in y.iter_mut().zip(&acc) {
+                for lane in 0..B {
+                    out[r][lane] += sum[lane];
+                }
             }
         }
     }
@@ -109,12 +93,14 @@ impl RowTable {
     /// y_r += Σ_{(r', q)} Σ_i j[q · m + i] · g[r' · m + i] over the rows of
     /// y, lane by lane, where g holds the m source rows column by column:
     /// one table entry serves every source, and the sources of one column
-    /// are contiguous.
+    /// are contiguous. The weights come repeated for every lane, so that
+    /// weights and sources are multiplied element by element.
+    #[inline(always)]
     fn add_crossing<const B: usize>(
         &self,
         g: &[[f64; B]],
         m: usize,
-        j: &[f64],
+        j: &[[f64; B]],
         y: &mut [[f64; B]],
     ) {
         // A fixed count of sources lets the compiler unroll the inner loop
@@ -136,24 +122,31 @@ impl RowTable {
     }
 
     /// [`RowTable::add_crossing`] for exactly M sources.
-    #[inline]
+    #[inline(always)]
     fn add_crossing_fixed<const B: usize, const M: usize>(
         &self,
         g: &[[f64; B]],
-        j: &[f64],
+        j: &[[f64; B]],
         y: &mut [[f64; B]],
     ) {
+        // Viewed as whole groups of M (bytemuck checks the length once):
+        // one bounds check per entry and slice.
+        let g: &[[[f64; B]; M]] = bytemuck::cast_slice(g);
+        let j: &[[[f64; B]; M]] = bytemuck::cast_slice(j);
         for (r, out) in y.iter_mut().enumerate() {
             let mut acc = [0.0; B];
             let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
             for &(col, q) in &self.entries[from..to] {
-                let (col, q) = (col as usize * M, q as usize * M);
-                let weights: &[f64; M] = j[q..q + M].try_into().expect("M weights");
-                let values: &[[f64; B]; M] = g[col..col + M].try_into().expect("M sources");
+                let (weights, values) = (&j[q as usize], &g[col as usize]);
+                let mut terms = [[0.0; B]; M];
                 for i in 0..M {
                     for b in 0..B {
-                        acc[b] += weights[i] * values[i][b];
+                        terms[i][b] = weights[i][b] * values[i][b];
                     }
+                }
+                let sum = pairwise_sum(terms);
+                for b in 0..B {
+                    acc[b] += sum[b];
                 }
             }
             for b in 0..B {
@@ -161,6 +154,26 @@ impl RowTable {
             }
         }
     }
+}
+
+/// Σ_i terms[i], lane by lane, as a balanced tree: the additions of one
+/// level are independent, so the sum waits on ⌈log₂ M⌉ additions instead of
+/// M − 1 in a chain (the crossing sums were bound by that chain's latency).
+#[inline(always)]
+fn pairwise_sum<const B: usize, const M: usize>(mut terms: [[f64; B]; M]) -> [f64; B] {
+    let mut len = M;
+    while len > 1 {
+        let half = len / 2;
+        let rest = len - half;
+        let (head, tail) = terms.split_at_mut(rest);
+        for (sum, term) in head[..half].iter_mut().zip(&tail[..half]) {
+            for (s, t) in sum.iter_mut().zip(term) {
+                *s += t;
+            }
+        }
+        len = rest;
+    }
+    terms[0]
 }
 
 /// The Hamiltonian of one sector, applied without being stored.
@@ -377,9 +390,6 @@ impl SectorOperator {
         shift: f64,
         back: Option<&[[f64; B]]>,
     ) -> [LaneSums; B] {
-        let n = self.sites;
-        let lb = self.low_bits;
-        let high_bits = n - lb;
         let mut pieces = Vec::with_capacity(self.tasks.len());
         let mut rest = y;
         for &(panel, _, rows) in &self.tasks {
@@ -388,104 +398,16 @@ impl SectorOperator {
             pieces.push(head);
             rest = tail;
         }
+        let step = Step {
+            x,
+            scale,
+            shift,
+            back,
+        };
         let partials: Vec<[LaneSums; B]> = pieces
             .into_par_iter()
             .zip(self.tasks.par_iter())
-            .map(|(ys, &(index, first_row, _))| {
-                let panel = self.panels[index];
-                let c = panel.class;
-                let m = self.sites_up_high(c);
-                let width = panel.cols;
-                let mut sums = [LaneSums::default(); B];
-                let mut gathered: Vec<[f64; B]> = Vec::new();
-                // Inside the low half: the class's table, two rows at a time
-                // so that every entry is decoded once for both.
-                ys.fill([0.0; B]);
-                let first = panel.start + first_row * panel.cols;
-                let task_x = &x[first..first + ys.len()];
-                let mut pairs = ys.chunks_exact_mut(2 * width);
-                let mut x_pairs = task_x.chunks_exact(2 * width);
-                for (y2, x2) in (&mut pairs).zip(&mut x_pairs) {
-                    let (y_a, y_b) = y2.split_at_mut(width);
-                    let (x_a, x_b) = x2.split_at(width);
-                    self.inside[c].add_product_pair::<B>([x_a, x_b], &self.coupling, [y_a, y_b]);
-                }
-                let (y_rest, x_rest) = (pairs.into_remainder(), x_pairs.remainder());
-                if !y_rest.is_empty() {
-                    self.inside[c].add_product::<B>(x_rest, &self.coupling, y_rest);
-                }
-                for (offset, yr) in ys.chunks_exact_mut(width).enumerate() {
-                    let row = first_row + offset;
-                    let h = self.high_words[m][row];
-                    let begin = panel.start + row * panel.cols;
-                    let xr = &x[begin..begin + width];
-                    for p in 0..high_bits {
-                        let p_row = &self.coupling[(lb + p) * n..(lb + p + 1) * n];
-                        if (h >> p) & 1 == 1 {
-                            // Up spin p moves to an empty high site q.
-                            for q in (0..high_bits).filter(|&q| (h >> q) & 1 == 0) {
-                                let j = p_row[lb + q];
-                                if j == 0.0 {
-                                    continue;
-                                }
-                                let other = self.row::<B>(x, c, h ^ (1 << p) ^ (1 << q));
-                                for (o, v) in
-                                    yr.as_flattened_mut().iter_mut().zip(other.as_flattened())
-                                {
-                                    *o += j * v;
-                                }
-                            }
-                        }
-                    }
-                    // One spin crosses between the halves: every high site
-                    // p that can give (take) a spin contributes the row of
-                    // panel c + 1 (c − 1) with that spin moved; the table
-                    // of low sites is read once for all of them.
-                    for filled in [true, false] {
-                        let class = if filled { c + 1 } else { c.wrapping_sub(1) };
-                        if class > lb {
-                            continue;
-                        }
-                        let sites = (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled);
-                        let m = sites.clone().count();
-                        if m == 0 {
-                            continue;
-                        }
-                        // The m source rows, column by column.
-                        let cols =
-                            self.panels[self.panel_of_class[class].expect("valid class")].cols;
-                        gathered.clear();
-                        gathered.resize(cols * m, [0.0; B]);
-                        for (i, p) in sites.enumerate() {
-                            let source = self.row::<B>(x, class, h ^ (1 << p));
-                            for (col, v) in source.iter().enumerate() {
-                                gathered[col * m + i] = *v;
-                            }
-                        }
-                        let slot = 2 * h as usize + usize::from(filled);
-                        let weights = &self.crossing_weights
-                            [self.crossing_start[slot]..self.crossing_start[slot + 1]];
-                        let table = if filled {
-                            &self.to_low[c]
-                        } else {
-                            &self.from_low[c]
-                        };
-                        table.add_crossing::<B>(&gathered, m, weights, yr);
-                    }
-                    for (k, (out, xv)) in yr.iter_mut().zip(xr).enumerate() {
-                        let a = begin + k;
-                        let d = self.diagonal[a] - shift;
-                        let z = back.map_or([0.0; B], |z| z[a]);
-                        for b in 0..B {
-                            let v = (out[b] + xv[b] * d) * scale - z[b];
-                            out[b] = v;
-                            sums[b].overlap += xv[b] * v;
-                            sums[b].norm_sq += v * v;
-                        }
-                    }
-                }
-                sums
-            })
+            .map(|(ys, &(index, first_row, _))| apply_task::<B>(self, &step, ys, index, first_row))
             .collect();
         let mut total = [LaneSums::default(); B];
         for part in &partials {
@@ -501,6 +423,141 @@ impl SectorOperator {
     fn sites_up_high(&self, class: usize) -> usize {
         self.up - class
     }
+}
+
+/// What every task of one [`SectorOperator::apply`] reads.
+#[derive(Clone, Copy)]
+struct Step<'a, const B: usize> {
+    x: &'a [[f64; B]],
+    scale: f64,
+    shift: f64,
+    back: Option<&'a [[f64; B]]>,
+}
+
+/// One task of [`SectorOperator::apply`]: the rows `ys` of panel
+/// `index` from row `first_row` on. Compiled once more for AVX2 and
+/// chosen at run time when the processor has it; the arithmetic and its
+/// order are the same in both (no fused multiply-add), so the bits are.
+#[multiversion::multiversion(targets("x86_64+avx2"))]
+fn apply_task<const B: usize>(
+    op: &SectorOperator,
+    step: &Step<'_, B>,
+    ys: &mut [[f64; B]],
+    index: usize,
+    first_row: usize,
+) -> [LaneSums; B] {
+    let Step {
+        x,
+        scale,
+        shift,
+        back,
+    } = *step;
+    let n = op.sites;
+    let lb = op.low_bits;
+    let high_bits = n - lb;
+    let panel = op.panels[index];
+    let c = panel.class;
+    let m = op.sites_up_high(c);
+    let width = panel.cols;
+    let mut sums = [LaneSums::default(); B];
+    let mut gathered: Vec<[f64; B]> = Vec::new();
+    let mut weights: Vec<[f64; B]> = Vec::new();
+    // Inside the low half: the class's table, four rows at a time so that
+    // every entry is decoded once for all of them.
+    ys.fill([0.0; B]);
+    let first = panel.start + first_row * panel.cols;
+    let task_x = &x[first..first + ys.len()];
+    let mut quads = ys.chunks_exact_mut(4 * width);
+    let mut x_quads = task_x.chunks_exact(4 * width);
+    for (y4, x4) in (&mut quads).zip(&mut x_quads) {
+        let mut y_rows = y4.chunks_exact_mut(width);
+        let mut x_rows = x4.chunks_exact(width);
+        let y_rows: [&mut [[f64; B]]; 4] =
+            std::array::from_fn(|_| y_rows.next().expect("four rows"));
+        let x_rows: [&[[f64; B]]; 4] = std::array::from_fn(|_| x_rows.next().expect("four rows"));
+        op.inside[c].add_product_rows::<B, 4>(x_rows, &op.coupling, y_rows);
+    }
+    for (yr, xr) in quads
+        .into_remainder()
+        .chunks_exact_mut(width)
+        .zip(x_quads.remainder().chunks_exact(width))
+    {
+        op.inside[c].add_product_rows::<B, 1>([xr], &op.coupling, [yr]);
+    }
+    for (offset, yr) in ys.chunks_exact_mut(width).enumerate() {
+        let row = first_row + offset;
+        let h = op.high_words[m][row];
+        let begin = panel.start + row * panel.cols;
+        let xr = &x[begin..begin + width];
+        for p in 0..high_bits {
+            let p_row = &op.coupling[(lb + p) * n..(lb + p + 1) * n];
+            if (h >> p) & 1 == 1 {
+                // Up spin p moves to an empty high site q.
+                for q in (0..high_bits).filter(|&q| (h >> q) & 1 == 0) {
+                    let j = p_row[lb + q];
+                    if j == 0.0 {
+                        continue;
+                    }
+                    let other = op.row::<B>(x, c, h ^ (1 << p) ^ (1 << q));
+                    for (o, v) in yr.as_flattened_mut().iter_mut().zip(other.as_flattened()) {
+                        *o += j * v;
+                    }
+                }
+            }
+        }
+        // One spin crosses between the halves: every high site
+        // p that can give (take) a spin contributes the row of
+        // panel c + 1 (c − 1) with that spin moved; the table
+        // of low sites is read once for all of them.
+        for filled in [true, false] {
+            let class = if filled { c + 1 } else { c.wrapping_sub(1) };
+            if class > lb {
+                continue;
+            }
+            let sites = (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled);
+            let m = sites.clone().count();
+            if m == 0 {
+                continue;
+            }
+            // The m source rows, column by column.
+            let cols = op.panels[op.panel_of_class[class].expect("valid class")].cols;
+            if gathered.len() < cols * m {
+                gathered.resize(cols * m, [0.0; B]);
+            }
+            let gathered = &mut gathered[..cols * m];
+            for (i, p) in sites.enumerate() {
+                let source = op.row::<B>(x, class, h ^ (1 << p));
+                for (column, v) in gathered.chunks_exact_mut(m).zip(source) {
+                    column[i] = *v;
+                }
+            }
+            let slot = 2 * h as usize + usize::from(filled);
+            weights.clear();
+            weights.extend(
+                op.crossing_weights[op.crossing_start[slot]..op.crossing_start[slot + 1]]
+                    .iter()
+                    .map(|&w| [w; B]),
+            );
+            let table = if filled {
+                &op.to_low[c]
+            } else {
+                &op.from_low[c]
+            };
+            table.add_crossing::<B>(gathered, m, &weights, yr);
+        }
+        for (k, (out, xv)) in yr.iter_mut().zip(xr).enumerate() {
+            let a = begin + k;
+            let d = op.diagonal[a] - shift;
+            let z = back.map_or([0.0; B], |z| z[a]);
+            for b in 0..B {
+                let v = (out[b] + xv[b] * d) * scale - z[b];
+                out[b] = v;
+                sums[b].overlap += xv[b] * v;
+                sums[b].norm_sq += v * v;
+            }
+        }
+    }
+    sums
 }
 
 /// Per lane: ‖v‖², summed over a fixed partition in basis order.
