@@ -2,6 +2,16 @@
 //! stored, to one or several real vectors at once ("lanes"), in a basis
 //! ordered so that every part of H reads contiguous rows (module
 //! documentation of `typicality`).
+//!
+//! Instruction set: the work of one task is compiled twice, for the
+//! baseline x86-64 and for AVX2, and the processor's features pick one at
+//! run time (the `multiversion` crate: it writes the feature check and the
+//! dispatch that safe Rust cannot). Rust never fuses a multiplication and an
+//! addition on its own, and every sum here has a fixed order (the crossing
+//! sums a balanced tree, written out), so both versions do the same
+//! operations in the same order and give the same bits; vectorising only
+//! processes lanes and rows side by side. With two lanes, the AVX2 version
+//! executes about a fifth fewer instructions (callgrind, 16 sites).
 
 use super::*;
 
