@@ -104,63 +104,70 @@ impl RowTable {
     /// y, lane by lane, where g holds the m source rows column by column:
     /// one table entry serves every source, and the sources of one column
     /// are contiguous. The weights come repeated for every lane, so that
-    /// weights and sources are multiplied element by element.
+    /// weights and sources are multiplied element by element. R rows of one
+    /// panel (each with its own sources and weights) share every decoded
+    /// table entry.
     #[inline(always)]
-    fn add_crossing<const B: usize>(
+    fn add_crossing<const B: usize, const R: usize>(
         &self,
-        g: &[[f64; B]],
+        g: [&[[f64; B]]; R],
         m: usize,
-        j: &[[f64; B]],
-        y: &mut [[f64; B]],
+        j: [&[[f64; B]]; R],
+        y: [&mut [[f64; B]]; R],
     ) {
         // A fixed count of sources lets the compiler unroll the inner loop
         // (a factor of about three fewer instructions than a loop over m).
         match m {
-            1 => self.add_crossing_fixed::<B, 1>(g, j, y),
-            2 => self.add_crossing_fixed::<B, 2>(g, j, y),
-            3 => self.add_crossing_fixed::<B, 3>(g, j, y),
-            4 => self.add_crossing_fixed::<B, 4>(g, j, y),
-            5 => self.add_crossing_fixed::<B, 5>(g, j, y),
-            6 => self.add_crossing_fixed::<B, 6>(g, j, y),
-            7 => self.add_crossing_fixed::<B, 7>(g, j, y),
-            8 => self.add_crossing_fixed::<B, 8>(g, j, y),
-            9 => self.add_crossing_fixed::<B, 9>(g, j, y),
-            10 => self.add_crossing_fixed::<B, 10>(g, j, y),
-            11 => self.add_crossing_fixed::<B, 11>(g, j, y),
-            _ => self.add_crossing_fixed::<B, MAX_HALF>(g, j, y),
+            1 => self.add_crossing_fixed::<B, 1, R>(g, j, y),
+            2 => self.add_crossing_fixed::<B, 2, R>(g, j, y),
+            3 => self.add_crossing_fixed::<B, 3, R>(g, j, y),
+            4 => self.add_crossing_fixed::<B, 4, R>(g, j, y),
+            5 => self.add_crossing_fixed::<B, 5, R>(g, j, y),
+            6 => self.add_crossing_fixed::<B, 6, R>(g, j, y),
+            7 => self.add_crossing_fixed::<B, 7, R>(g, j, y),
+            8 => self.add_crossing_fixed::<B, 8, R>(g, j, y),
+            9 => self.add_crossing_fixed::<B, 9, R>(g, j, y),
+            10 => self.add_crossing_fixed::<B, 10, R>(g, j, y),
+            11 => self.add_crossing_fixed::<B, 11, R>(g, j, y),
+            _ => self.add_crossing_fixed::<B, MAX_HALF, R>(g, j, y),
         }
     }
 
     /// [`RowTable::add_crossing`] for exactly M sources.
     #[inline(always)]
-    fn add_crossing_fixed<const B: usize, const M: usize>(
+    fn add_crossing_fixed<const B: usize, const M: usize, const R: usize>(
         &self,
-        g: &[[f64; B]],
-        j: &[[f64; B]],
-        y: &mut [[f64; B]],
+        g: [&[[f64; B]]; R],
+        j: [&[[f64; B]]; R],
+        y: [&mut [[f64; B]]; R],
     ) {
         // Viewed as whole groups of M (bytemuck checks the length once):
         // one bounds check per entry and slice.
-        let g: &[[[f64; B]; M]] = bytemuck::cast_slice(g);
-        let j: &[[[f64; B]; M]] = bytemuck::cast_slice(j);
-        for (r, out) in y.iter_mut().enumerate() {
-            let mut acc = [0.0; B];
+        let g: [&[[[f64; B]; M]]; R] = g.map(bytemuck::cast_slice);
+        let j: [&[[[f64; B]; M]]; R] = j.map(bytemuck::cast_slice);
+        let mut y = y;
+        for r in 0..y[0].len() {
+            let mut acc = [[0.0; B]; R];
             let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
             for &(col, q) in &self.entries[from..to] {
-                let (weights, values) = (&j[q as usize], &g[col as usize]);
-                let mut terms = [[0.0; B]; M];
-                for i in 0..M {
+                for ((sum, g), j) in acc.iter_mut().zip(&g).zip(&j) {
+                    let (weights, values) = (&j[q as usize], &g[col as usize]);
+                    let mut terms = [[0.0; B]; M];
+                    for i in 0..M {
+                        for b in 0..B {
+                            terms[i][b] = weights[i][b] * values[i][b];
+                        }
+                    }
+                    let total = pairwise_sum(terms);
                     for b in 0..B {
-                        terms[i][b] = weights[i][b] * values[i][b];
+                        sum[b] += total[b];
                     }
                 }
-                let sum = pairwise_sum(terms);
-                for b in 0..B {
-                    acc[b] += sum[b];
-                }
             }
-            for b in 0..B {
-                out[b] += acc[b];
+            for (out, sum) in y.iter_mut().zip(&acc) {
+                for b in 0..B {
+                    out[r][b] += sum[b];
+                }
             }
         }
     }
@@ -456,22 +463,11 @@ fn apply_task<const B: usize>(
     index: usize,
     first_row: usize,
 ) -> [LaneSums; B] {
-    let Step {
-        x,
-        scale,
-        shift,
-        back,
-    } = *step;
-    let n = op.sites;
-    let lb = op.low_bits;
-    let high_bits = n - lb;
+    let x = step.x;
     let panel = op.panels[index];
     let c = panel.class;
-    let m = op.sites_up_high(c);
     let width = panel.cols;
     let mut sums = [LaneSums::default(); B];
-    let mut gathered: Vec<[f64; B]> = Vec::new();
-    let mut weights: Vec<[f64; B]> = Vec::new();
     // Inside the low half: the class's table, four rows at a time so that
     // every entry is decoded once for all of them.
     ys.fill([0.0; B]);
@@ -494,11 +490,68 @@ fn apply_task<const B: usize>(
     {
         op.inside[c].add_product_rows::<B, 1>([xr], &op.coupling, [yr]);
     }
-    for (offset, yr) in ys.chunks_exact_mut(width).enumerate() {
-        let row = first_row + offset;
-        let h = op.high_words[m][row];
-        let begin = panel.start + row * panel.cols;
-        let xr = &x[begin..begin + width];
+    // The rest two rows at a time, so that the crossing tables are decoded
+    // once for both; every row still receives its terms in the same order.
+    let mut scratch = Scratch::default();
+    let paired = ys.len() / (2 * width) * 2;
+    let mut pairs = ys.chunks_exact_mut(2 * width);
+    for (offset, y2) in (&mut pairs).enumerate() {
+        let (y_a, y_b) = y2.split_at_mut(width);
+        let row = first_row + 2 * offset;
+        rows_outside::<B, 2>(op, step, panel, row, [y_a, y_b], &mut scratch, &mut sums);
+    }
+    let rest = pairs.into_remainder();
+    if !rest.is_empty() {
+        let row = first_row + paired;
+        rows_outside::<B, 1>(op, step, panel, row, [rest], &mut scratch, &mut sums);
+    }
+    sums
+}
+
+/// Reused buffers of one task: per row of a pass, its gathered source rows
+/// and its weights repeated per lane.
+struct Scratch<const B: usize> {
+    gathered: [Vec<[f64; B]>; 2],
+    weights: [Vec<[f64; B]>; 2],
+}
+
+impl<const B: usize> Default for Scratch<B> {
+    fn default() -> Self {
+        Self {
+            gathered: [Vec::new(), Vec::new()],
+            weights: [Vec::new(), Vec::new()],
+        }
+    }
+}
+
+/// For the R (≤ 2) consecutive rows `ys` of `panel` from row `row` on, whose
+/// low-half terms are in already: the moves inside the high half, the
+/// crossings between the halves, then the diagonal, the scaling and the
+/// lane sums, row by row in basis order.
+#[inline(always)]
+fn rows_outside<const B: usize, const R: usize>(
+    op: &SectorOperator,
+    step: &Step<'_, B>,
+    panel: Panel,
+    row: usize,
+    ys: [&mut [[f64; B]]; R],
+    scratch: &mut Scratch<B>,
+    sums: &mut [LaneSums; B],
+) {
+    let Step {
+        x,
+        scale,
+        shift,
+        back,
+    } = *step;
+    let n = op.sites;
+    let lb = op.low_bits;
+    let high_bits = n - lb;
+    let c = panel.class;
+    let width = panel.cols;
+    let mut ys = ys;
+    let hs: [u32; R] = std::array::from_fn(|r| op.high_words[op.sites_up_high(c)][row + r]);
+    for (yr, &h) in ys.iter_mut().zip(&hs) {
         for p in 0..high_bits {
             let p_row = &op.coupling[(lb + p) * n..(lb + p + 1) * n];
             if (h >> p) & 1 == 1 {
@@ -515,29 +568,37 @@ fn apply_task<const B: usize>(
                 }
             }
         }
-        // One spin crosses between the halves: every high site
-        // p that can give (take) a spin contributes the row of
-        // panel c + 1 (c − 1) with that spin moved; the table
-        // of low sites is read once for all of them.
-        for filled in [true, false] {
-            let class = if filled { c + 1 } else { c.wrapping_sub(1) };
-            if class > lb {
-                continue;
-            }
-            let sites = (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled);
-            let m = sites.clone().count();
-            if m == 0 {
-                continue;
-            }
+    }
+    // One spin crosses between the halves: every high site p that can give
+    // (take) a spin contributes the row of panel c + 1 (c − 1) with that
+    // spin moved; the table of low sites is read once for all of them and
+    // for all R rows (whose high halves have equally many up spins, so equal
+    // source counts m).
+    for filled in [true, false] {
+        let class = if filled { c + 1 } else { c.wrapping_sub(1) };
+        if class > lb {
+            continue;
+        }
+        let m = if filled {
+            op.sites_up_high(c)
+        } else {
+            high_bits - op.sites_up_high(c)
+        };
+        if m == 0 {
+            continue;
+        }
+        let cols = op.panels[op.panel_of_class[class].expect("valid class")].cols;
+        let Scratch { gathered, weights } = scratch;
+        for ((&h, gathered), weights) in hs.iter().zip(gathered.iter_mut()).zip(weights.iter_mut())
+        {
             // The m source rows, column by column.
-            let cols = op.panels[op.panel_of_class[class].expect("valid class")].cols;
             if gathered.len() < cols * m {
                 gathered.resize(cols * m, [0.0; B]);
             }
-            let gathered = &mut gathered[..cols * m];
+            let sites = (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled);
             for (i, p) in sites.enumerate() {
                 let source = op.row::<B>(x, class, h ^ (1 << p));
-                for (column, v) in gathered.chunks_exact_mut(m).zip(source) {
+                for (column, v) in gathered[..cols * m].chunks_exact_mut(m).zip(source) {
                     column[i] = *v;
                 }
             }
@@ -548,13 +609,19 @@ fn apply_task<const B: usize>(
                     .iter()
                     .map(|&w| [w; B]),
             );
-            let table = if filled {
-                &op.to_low[c]
-            } else {
-                &op.from_low[c]
-            };
-            table.add_crossing::<B>(gathered, m, &weights, yr);
         }
+        let g: [&[[f64; B]]; R] = std::array::from_fn(|r| &gathered[r][..cols * m]);
+        let j: [&[[f64; B]]; R] = std::array::from_fn(|r| weights[r].as_slice());
+        let table = if filled {
+            &op.to_low[c]
+        } else {
+            &op.from_low[c]
+        };
+        table.add_crossing::<B, R>(g, m, j, ys.each_mut().map(|y| &mut **y));
+    }
+    for (r, yr) in ys.iter_mut().enumerate() {
+        let begin = panel.start + (row + r) * width;
+        let xr = &x[begin..begin + width];
         for (k, (out, xv)) in yr.iter_mut().zip(xr).enumerate() {
             let a = begin + k;
             let d = op.diagonal[a] - shift;
@@ -567,7 +634,6 @@ fn apply_task<const B: usize>(
             }
         }
     }
-    sums
 }
 
 /// Per lane: ‖v‖², summed over a fixed partition in basis order.
