@@ -205,8 +205,19 @@ pub(super) struct Propagated {
 }
 
 impl Propagator<'_> {
+    /// The expansion of e^{−iHt} for every time of `times` (see
+    /// [`coefficients`]), computed once per sector and shared by every
+    /// group of vectors that [`Propagator::run`] propagates.
+    pub(super) fn expansions(&self, times: &[f64]) -> Vec<(Vec<Amp>, f64)> {
+        times
+            .iter()
+            .map(|&t| coefficients(self.spectrum.half * t, self.tolerance))
+            .collect()
+    }
+
     /// Evolves the `B` real lanes of `start` by e^{−iHt} (up to a global
-    /// phase per time) to every time of `times` (sorted ascending, ≥ 0) and
+    /// phase per time) to every time whose expansion `expansions` holds
+    /// (from [`Propagator::expansions`], times sorted ascending, ≥ 0) and
     /// hands the states, a stretch of at most `slots` times at once, to
     /// `observe(indices into times, states)`; every stretch expands from
     /// the start vector, so the recursion stays real and errors do not
@@ -214,7 +225,7 @@ impl Propagator<'_> {
     pub(super) fn run<const B: usize>(
         &self,
         start: &[[f64; B]],
-        times: &[f64],
+        expansions: &[(Vec<Amp>, f64)],
         tick: &mut dyn FnMut(f64),
         mut observe: impl FnMut(&[usize], &[State<B>]),
     ) -> Result<Propagated, SpinChainError> {
@@ -222,20 +233,15 @@ impl Propagator<'_> {
         let window = self.window.max(3);
         let half = self.spectrum.half;
         let reference = lane_norms::<B>(start);
-        let expansions: Vec<(Vec<Amp>, f64)> = times
-            .iter()
-            .map(|&t| coefficients(half * t, self.tolerance))
-            .collect();
-        let total: usize = times
+        let total: usize = expansions
             .chunks(self.slots.max(1))
-            .enumerate()
-            .map(|(s, chunk)| expansions[s * self.slots.max(1) + chunk.len() - 1].0.len())
+            .map(|chunk| chunk.last().map_or(0, |(c, _)| c.len()))
             .sum();
         let mut done = 0usize;
         let mut applications = 0u64;
         let mut first = 0;
-        while first < times.len() {
-            let end = (first + self.slots.max(1)).min(times.len());
+        while first < expansions.len() {
+            let end = (first + self.slots.max(1)).min(expansions.len());
             let stretch = &expansions[first..end];
             let terms = stretch.iter().map(|(c, _)| c.len()).max().unwrap_or(1);
             let mut outputs = vec![State::<B>::zeros(len); end - first];

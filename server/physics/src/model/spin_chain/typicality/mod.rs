@@ -402,11 +402,12 @@ pub fn vector_records(
             slots: plan.slots,
             cancel,
         };
+        let expansions = propagator.expansions(&sorted);
         let lanes = Lanes {
             propagator: &propagator,
             seed: options.seed,
             source,
-            sorted: &sorted,
+            expansions: &expansions,
             order: &order,
             report: &report,
         };
@@ -438,7 +439,8 @@ struct Lanes<'a> {
     propagator: &'a Propagator<'a>,
     seed: u64,
     source: usize,
-    sorted: &'a [f64],
+    /// The expansions of e^{−iHt} at the sorted times, shared by the groups.
+    expansions: &'a [(Vec<Amp>, f64)],
     order: &'a [usize],
     report: &'a (dyn Fn(u64) + Sync),
 }
@@ -450,7 +452,7 @@ impl Lanes<'_> {
         let operator = self.propagator.operator;
         let up = self.propagator.up;
         let sites = operator.sites;
-        let n_times = self.sorted.len();
+        let n_times = self.expansions.len();
         let dim = operator.dim();
         let mut start = vec![[0.0; B]; dim];
         for (b, &vector) in group.iter().enumerate() {
@@ -474,7 +476,7 @@ impl Lanes<'_> {
         };
         let outcome =
             self.propagator
-                .run::<B>(&start, self.sorted, &mut tick, |indices, states| {
+                .run::<B>(&start, self.expansions, &mut tick, |indices, states| {
                     for (&k, state) in indices.iter().zip(states) {
                         let measured = magnetisation_ratios::<B>(state, &operator.states, sites);
                         for (lane, row) in ratios.iter_mut().zip(measured) {

@@ -171,35 +171,40 @@ fn chebyshev_propagation_matches_the_eigendecomposition() {
         let mut worst = 0.0f64;
         let mut seen = 0;
         let outcome = propagator
-            .run::<2>(&start, &times, &mut |_| {}, |indices, states| {
-                for (&k, psi) in indices.iter().zip(states) {
-                    seen += 1;
-                    let t = times[k];
-                    let phase = Amp::from_polar(1.0, -range.center * t);
-                    for lane in [0, 1] {
-                        let v = &eigen.vectors;
-                        let mut diff = 0.0;
-                        let mut norm_sq = 0.0;
-                        // Coefficients in the eigenbasis, rotated by e^{−iλt}.
-                        let mut exact = vec![Amp::default(); d];
-                        for (m, &lambda) in eigen.values.iter().enumerate() {
-                            let mut c = Amp::default();
+            .run::<2>(
+                &start,
+                &propagator.expansions(&times),
+                &mut |_| {},
+                |indices, states| {
+                    for (&k, psi) in indices.iter().zip(states) {
+                        seen += 1;
+                        let t = times[k];
+                        let phase = Amp::from_polar(1.0, -range.center * t);
+                        for lane in [0, 1] {
+                            let v = &eigen.vectors;
+                            let mut diff = 0.0;
+                            let mut norm_sq = 0.0;
+                            // Coefficients in the eigenbasis, rotated by e^{−iλt}.
+                            let mut exact = vec![Amp::default(); d];
+                            for (m, &lambda) in eigen.values.iter().enumerate() {
+                                let mut c = Amp::default();
+                                for (i, &ai) in at.iter().enumerate() {
+                                    c += start[ai][lane] * v[(i, m)];
+                                }
+                                let c = c * Amp::from_polar(1.0, -lambda * t);
+                                for (i, e) in exact.iter_mut().enumerate() {
+                                    *e += c * v[(i, m)];
+                                }
+                            }
                             for (i, &ai) in at.iter().enumerate() {
-                                c += start[ai][lane] * v[(i, m)];
+                                diff += (psi.amp(ai, lane) * phase - exact[i]).norm_sqr();
+                                norm_sq += exact[i].norm_sqr();
                             }
-                            let c = c * Amp::from_polar(1.0, -lambda * t);
-                            for (i, e) in exact.iter_mut().enumerate() {
-                                *e += c * v[(i, m)];
-                            }
+                            worst = worst.max((diff / norm_sq).sqrt());
                         }
-                        for (i, &ai) in at.iter().enumerate() {
-                            diff += (psi.amp(ai, lane) * phase - exact[i]).norm_sqr();
-                            norm_sq += exact[i].norm_sqr();
-                        }
-                        worst = worst.max((diff / norm_sq).sqrt());
                     }
-                }
-            })
+                },
+            )
             .unwrap();
         assert_eq!(seen, times.len());
         assert!(
@@ -237,7 +242,12 @@ fn a_spectrum_outside_the_interval_is_refused() {
     let start: Vec<[f64; 1]> = (0..sector.dim())
         .map(|_| [standard_normal(&mut rng)])
         .collect();
-    let outcome = propagator.run::<1>(&start, &[1.0, 5.0], &mut |_| {}, |_, _| {});
+    let outcome = propagator.run::<1>(
+        &start,
+        &propagator.expansions(&[1.0, 5.0]),
+        &mut |_| {},
+        |_, _| {},
+    );
     assert!(
         matches!(outcome, Err(SpinChainError::SpectralBound { up: 4, .. })),
         "{outcome:?}"
