@@ -465,11 +465,13 @@ export function drawSumRule(el, input) {
 /**
  * Refits a drawn plot to its container after the container changed size.
  * @param {HTMLElement} el
+ * @returns {Promise<void>} settles when the plot has been redrawn
  */
 export function fitToContainer(el) {
   if (plottingAvailable() && el.classList.contains("js-plotly-plot")) {
-    void Plotly.Plots.resize(el);
+    return Promise.resolve(Plotly.Plots.resize(el)).then(() => undefined);
   }
+  return Promise.resolve();
 }
 
 /**
@@ -560,7 +562,7 @@ function fitIfStale(el) {
   const drawn = /** @type {{_fullLayout?: {width?: number, height?: number}}} */ (/** @type {unknown} */ (el))._fullLayout;
   // Plotly sizes a figure to its container's border box.
   const stale = drawn !== undefined && el.offsetWidth > 0 && (Math.abs((drawn.width ?? 0) - el.offsetWidth) > 1 || Math.abs((drawn.height ?? 0) - el.offsetHeight) > 1);
-  return stale ? Promise.resolve(Plotly.Plots.resize(el)).then(() => el) : Promise.resolve(el);
+  return stale ? fitToContainer(el).then(() => el) : Promise.resolve(el);
 }
 
 /**
