@@ -16,6 +16,7 @@ import { withError } from "./fitformat.js";
 import { formatNumber } from "./format.js";
 import { LatestOnly } from "./latest.js";
 import { CollapseFigure, drawQualityScan, fitToContainer } from "./plot.js";
+import { textScale } from "./plotcore.js";
 import { History } from "./undo.js";
 import { writeViewState } from "./urlstate.js";
 import { drawFailed, isVisible, note, registerView, timeAxisFor } from "./views.js";
@@ -127,15 +128,17 @@ function syncDials() {
 }
 
 /**
- * The key of what the figure shows: a different dataset, window or y axis
- * needs a new figure; z and D do not.
+ * The key of what the figure shows: a different dataset, window, y axis or
+ * lettering needs a new figure; z and D do not.
  * @returns {string}
  */
 function figureKey() {
   const d = state.detail;
   if (d === null) return "";
   const w = getWindows();
-  return `${d.id}|${d.content_hash}|${w.t_min}|${w.t_max}|${w.x_max}|${state.yScale}`;
+  // The lettering is part of the figure's layout (its margins and fonts),
+  // so a change of large text or presentation mode builds it again.
+  return `${d.id}|${d.content_hash}|${w.t_min}|${w.t_max}|${w.x_max}|${state.yScale}|${textScale}`;
 }
 
 /**
