@@ -106,17 +106,18 @@ impl RowTable {
     /// y_r += Σ_{(r', q)} Σ_i j[q · m + i] · g[r' · m + i] over the rows of
     /// y, lane by lane, where g holds the m source rows column by column:
     /// one table entry serves every source, and the sources of one column
-    /// are contiguous. The weights come repeated for every lane, so that
-    /// weights and sources are multiplied element by element. R rows of one
-    /// panel (each with its own sources and weights) share every decoded
-    /// table entry.
+    /// are contiguous. R rows of one panel (each with its own sources and
+    /// weights) share every decoded table entry, and their values sit side
+    /// by side in g and j (`[column][source][row][lane]`), the weights
+    /// repeated for every lane: with two lanes and two rows one product or
+    /// sum covers four values, a full AVX2 register.
     #[inline(always)]
     fn add_crossing<const B: usize, const R: usize>(
         &self,
-        g: [&[[f64; B]]; R],
+        g: &[[[f64; B]; R]],
         m: usize,
-        j: [&[[f64; B]]; R],
-        y: [&mut [[f64; B]]; R],
+        j: &[[[f64; B]; R]],
+        y: &mut [[[f64; B]; R]],
     ) {
         // A fixed count of sources lets the compiler unroll the inner loop
         // (a factor of about three fewer instructions than a loop over m).
@@ -140,37 +141,36 @@ impl RowTable {
     #[inline(always)]
     fn add_crossing_fixed<const B: usize, const M: usize, const R: usize>(
         &self,
-        g: [&[[f64; B]]; R],
-        j: [&[[f64; B]]; R],
-        y: [&mut [[f64; B]]; R],
+        g: &[[[f64; B]; R]],
+        j: &[[[f64; B]; R]],
+        y: &mut [[[f64; B]; R]],
     ) {
         // Viewed as whole groups of M (bytemuck checks the length once):
-        // one bounds check per entry and slice.
-        let g: [&[[[f64; B]; M]]; R] = g.map(bytemuck::cast_slice);
-        let j: [&[[[f64; B]; M]]; R] = j.map(bytemuck::cast_slice);
-        let mut y = y;
-        for r in 0..y[0].len() {
+        // one bounds check per entry.
+        let g: &[[[[f64; B]; R]; M]] = bytemuck::cast_slice(g);
+        let j: &[[[[f64; B]; R]; M]] = bytemuck::cast_slice(j);
+        for (r, out) in y.iter_mut().enumerate() {
             let mut acc = [[0.0; B]; R];
             let (from, to) = (self.rows[r] as usize, self.rows[r + 1] as usize);
             for &(col, q) in &self.entries[from..to] {
-                for ((sum, g), j) in acc.iter_mut().zip(&g).zip(&j) {
-                    let (weights, values) = (&j[q as usize], &g[col as usize]);
-                    let mut terms = [[0.0; B]; M];
-                    for i in 0..M {
+                let (weights, values) = (&j[q as usize], &g[col as usize]);
+                let mut terms = [[[0.0; B]; R]; M];
+                for i in 0..M {
+                    for row in 0..R {
                         for b in 0..B {
-                            terms[i][b] = weights[i][b] * values[i][b];
+                            terms[i][row][b] = weights[i][row][b] * values[i][row][b];
                         }
                     }
-                    let total = pairwise_sum(terms);
+                }
+                let total = pairwise_sum(terms);
+                for (sum, part) in acc.iter_mut().zip(&total) {
                     for b in 0..B {
-                        sum[b] += total[b];
+                        sum[b] += part[b];
                     }
                 }
             }
-            for (out, sum) in y.iter_mut().zip(&acc) {
-                for b in 0..B {
-                    out[r][b] += sum[b];
-                }
+            for (o, a) in out.as_flattened_mut().iter_mut().zip(acc.as_flattened()) {
+                *o += a;
             }
         }
     }
@@ -180,14 +180,16 @@ impl RowTable {
 /// level are independent, so the sum waits on ⌈log₂ M⌉ additions instead of
 /// M − 1 in a chain (the crossing sums were bound by that chain's latency).
 #[inline(always)]
-fn pairwise_sum<const B: usize, const M: usize>(mut terms: [[f64; B]; M]) -> [f64; B] {
+fn pairwise_sum<const B: usize, const R: usize, const M: usize>(
+    mut terms: [[[f64; B]; R]; M],
+) -> [[f64; B]; R] {
     let mut len = M;
     while len > 1 {
         let half = len / 2;
         let rest = len - half;
         let (head, tail) = terms.split_at_mut(rest);
         for (sum, term) in head[..half].iter_mut().zip(&tail[..half]) {
-            for (s, t) in sum.iter_mut().zip(term) {
+            for (s, t) in sum.as_flattened_mut().iter_mut().zip(term.as_flattened()) {
                 *s += t;
             }
         }
@@ -429,7 +431,12 @@ impl SectorOperator {
         let partials: Vec<[LaneSums; B]> = pieces
             .into_par_iter()
             .zip(self.tasks.par_iter())
-            .map(|(ys, &(index, first_row, _))| apply_task::<B>(self, &step, ys, index, first_row))
+            .map_init(
+                TaskScratch::default,
+                |scratch, (ys, &(index, first_row, _))| {
+                    apply_task::<B>(self, &step, ys, index, first_row, scratch)
+                },
+            )
             .collect();
         let mut total = [LaneSums::default(); B];
         for part in &partials {
@@ -467,6 +474,7 @@ fn apply_task<const B: usize>(
     ys: &mut [[f64; B]],
     index: usize,
     first_row: usize,
+    scratch: &mut TaskScratch<B>,
 ) -> [LaneSums; B] {
     let x = step.x;
     let panel = op.panels[index];
@@ -497,28 +505,47 @@ fn apply_task<const B: usize>(
     }
     // The rest two rows at a time, so that the crossing tables are decoded
     // once for both; every row still receives its terms in the same order.
-    let mut scratch = Scratch::default();
     let paired = ys.len() / (2 * width) * 2;
     let mut pairs = ys.chunks_exact_mut(2 * width);
     for (offset, y2) in (&mut pairs).enumerate() {
         let (y_a, y_b) = y2.split_at_mut(width);
         let row = first_row + 2 * offset;
-        rows_outside::<B, 2>(op, step, panel, row, [y_a, y_b], &mut scratch, &mut sums);
+        rows_outside::<B, 2>(
+            op,
+            step,
+            panel,
+            row,
+            [y_a, y_b],
+            &mut scratch.pairs,
+            &mut sums,
+        );
     }
     let rest = pairs.into_remainder();
     if !rest.is_empty() {
         let row = first_row + paired;
-        rows_outside::<B, 1>(op, step, panel, row, [rest], &mut scratch, &mut sums);
+        rows_outside::<B, 1>(op, step, panel, row, [rest], &mut scratch.single, &mut sums);
     }
     sums
 }
 
-/// Reused buffers of one task: per row of a pass, its gathered source rows
-/// and its weights repeated per lane.
+/// The buffers of the tasks one thread runs in one application (rayon's
+/// `map_init` hands each split of the work its own, so they are allocated a
+/// few times per application rather than once per task), for pairs of rows
+/// and for a last single row.
 #[derive(Default)]
-struct Scratch<const B: usize> {
-    gathered: [Vec<[f64; B]>; 2],
-    weights: [Vec<[f64; B]>; 2],
+struct TaskScratch<const B: usize> {
+    pairs: Scratch<B, 2>,
+    single: Scratch<B, 1>,
+}
+
+/// Reused buffers of R rows at a time: their gathered source rows, their
+/// weights repeated per lane, and their crossing sums, the R rows side by
+/// side in each.
+#[derive(Default)]
+struct Scratch<const B: usize, const R: usize> {
+    gathered: Vec<[[f64; B]; R]>,
+    crossed: Vec<[[f64; B]; R]>,
+    weights: Vec<[[f64; B]; R]>,
 }
 
 /// For the R (≤ 2) consecutive rows `ys` of `panel` from row `row` on, whose
@@ -532,7 +559,7 @@ fn rows_outside<const B: usize, const R: usize>(
     panel: Panel,
     row: usize,
     ys: [&mut [[f64; B]]; R],
-    scratch: &mut Scratch<B>,
+    scratch: &mut Scratch<B, R>,
     sums: &mut [LaneSums; B],
 ) {
     let Step {
@@ -548,29 +575,43 @@ fn rows_outside<const B: usize, const R: usize>(
     let width = panel.cols;
     let mut ys = ys;
     let hs: [u32; R] = std::array::from_fn(|r| op.high_words[op.sites_up_high(c)][row + r]);
+    // Up spin p moves to an empty high site q: the row with the spin moved,
+    // scaled, MOVES_PER_PASS rows per pass over y (each pass reads and
+    // writes y once instead of once per source row).
     for (yr, &h) in ys.iter_mut().zip(&hs) {
-        for p in 0..high_bits {
+        let mut moves: [(f64, &[[f64; B]]); MOVES_PER_PASS] = [(0.0, &[]); MOVES_PER_PASS];
+        let mut count = 0;
+        for p in (0..high_bits).filter(|&p| (h >> p) & 1 == 1) {
             let p_row = &op.coupling[(lb + p) * n..(lb + p + 1) * n];
-            if (h >> p) & 1 == 1 {
-                // Up spin p moves to an empty high site q.
-                for q in (0..high_bits).filter(|&q| (h >> q) & 1 == 0) {
-                    let j = p_row[lb + q];
-                    if j == 0.0 {
-                        continue;
-                    }
-                    let other = op.row::<B>(x, c, h ^ (1 << p) ^ (1 << q));
-                    for (o, v) in yr.as_flattened_mut().iter_mut().zip(other.as_flattened()) {
-                        *o += j * v;
-                    }
+            for q in (0..high_bits).filter(|&q| (h >> q) & 1 == 0) {
+                let j = p_row[lb + q];
+                if j == 0.0 {
+                    continue;
+                }
+                moves[count] = (j, op.row::<B>(x, c, h ^ (1 << p) ^ (1 << q)));
+                count += 1;
+                if count == MOVES_PER_PASS {
+                    add_scaled_rows(yr, &moves);
+                    count = 0;
                 }
             }
+        }
+        match count {
+            0 => {}
+            1 => add_scaled_rows::<B, 1>(yr, &[moves[0]]),
+            2 => add_scaled_rows::<B, 2>(yr, &[moves[0], moves[1]]),
+            _ => add_scaled_rows::<B, 3>(yr, &[moves[0], moves[1], moves[2]]),
         }
     }
     // One spin crosses between the halves: every high site p that can give
     // (take) a spin contributes the row of panel c + 1 (c − 1) with that
     // spin moved; the table of low sites is read once for all of them and
     // for all R rows (whose high halves have equally many up spins, so equal
-    // source counts m).
+    // source counts m). Both directions add into `crossed`, whose columns
+    // hold the R rows side by side (contiguous for the compiler's vectors),
+    // and that sum is added to every row once.
+    scratch.crossed.clear();
+    scratch.crossed.resize(width, [[0.0; B]; R]);
     for filled in [true, false] {
         let class = if filled { c + 1 } else { c.wrapping_sub(1) };
         if class > lb {
@@ -585,36 +626,46 @@ fn rows_outside<const B: usize, const R: usize>(
             continue;
         }
         let cols = op.panels[op.panel_of_class[class].expect("valid class")].cols;
-        let Scratch { gathered, weights } = scratch;
-        for ((&h, gathered), weights) in hs.iter().zip(gathered.iter_mut()).zip(weights.iter_mut())
-        {
-            // The m source rows, column by column.
-            if gathered.len() < cols * m {
-                gathered.resize(cols * m, [0.0; B]);
-            }
+        let Scratch {
+            gathered,
+            crossed,
+            weights,
+        } = scratch;
+        // The m source rows of every row of the pass, column by column.
+        if gathered.len() < cols * m {
+            gathered.resize(cols * m, [[0.0; B]; R]);
+        }
+        let gathered = &mut gathered[..cols * m];
+        weights.clear();
+        let mut slots = [(0, 0); R];
+        for (r, &h) in hs.iter().enumerate() {
             let sites = (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled);
             for (i, p) in sites.enumerate() {
                 let source = op.row::<B>(x, class, h ^ (1 << p));
-                for (column, v) in gathered[..cols * m].chunks_exact_mut(m).zip(source) {
-                    column[i] = *v;
+                for (column, v) in gathered.chunks_exact_mut(m).zip(source) {
+                    column[i][r] = *v;
                 }
             }
             let slot = 2 * h as usize + usize::from(filled);
-            weights.clear();
-            weights.extend(
-                op.crossing_weights[op.crossing_start[slot]..op.crossing_start[slot + 1]]
-                    .iter()
-                    .map(|&w| [w; B]),
-            );
+            slots[r] = (op.crossing_start[slot], op.crossing_start[slot + 1]);
         }
-        let g: [&[[f64; B]]; R] = std::array::from_fn(|r| &gathered[r][..cols * m]);
-        let j: [&[[f64; B]]; R] = std::array::from_fn(|r| weights[r].as_slice());
+        let len = slots[0].1 - slots[0].0;
+        weights.extend(
+            (0..len).map(|k| std::array::from_fn(|r| [op.crossing_weights[slots[r].0 + k]; B])),
+        );
         let table = if filled {
             &op.to_low[c]
         } else {
             &op.from_low[c]
         };
-        table.add_crossing::<B, R>(g, m, j, ys.each_mut().map(|y| &mut **y));
+        table.add_crossing::<B, R>(gathered, m, weights, crossed);
+    }
+    for (r, yr) in ys.iter_mut().enumerate() {
+        for (out, sum) in yr.iter_mut().zip(scratch.crossed.iter()) {
+            for b in 0..B {
+                out[b] += sum[r][b];
+            }
+        }
     }
     for (r, yr) in ys.iter_mut().enumerate() {
         let begin = panel.start + (row + r) * width;
@@ -629,6 +680,27 @@ fn rows_outside<const B: usize, const R: usize>(
                 sums[b].overlap += xv[b] * v;
                 sums[b].norm_sq += v * v;
             }
+        }
+    }
+}
+
+/// Source rows added per pass over a row in the moves inside the high half.
+const MOVES_PER_PASS: usize = 4;
+
+/// y += Σ_i j_i x_i over the M (j_i, x_i) of `rows`, element by element,
+/// the sum a balanced tree in the order given.
+#[inline(always)]
+fn add_scaled_rows<const B: usize, const M: usize>(
+    y: &mut [[f64; B]],
+    rows: &[(f64, &[[f64; B]]); M],
+) {
+    let sources: [&[[f64; B]]; M] = std::array::from_fn(|i| &rows[i].1[..y.len()]);
+    for (k, out) in y.iter_mut().enumerate() {
+        let terms: [[[f64; B]; 1]; M] =
+            std::array::from_fn(|i| [std::array::from_fn(|b| rows[i].0 * sources[i][k][b])]);
+        let [total] = pairwise_sum(terms);
+        for b in 0..B {
+            out[b] += total[b];
         }
     }
 }
