@@ -638,16 +638,23 @@ fn rows_outside<const B: usize, const R: usize>(
         let gathered = &mut gathered[..cols * m];
         weights.clear();
         let mut slots = [(0, 0); R];
+        let mut sources: [[&[[f64; B]]; MAX_HALF]; R] = [[&[]; MAX_HALF]; R];
         for (r, &h) in hs.iter().enumerate() {
             let sites = (0..high_bits).filter(|&p| ((h >> p) & 1 == 1) == filled);
             for (i, p) in sites.enumerate() {
-                let source = op.row::<B>(x, class, h ^ (1 << p));
-                for (column, v) in gathered.chunks_exact_mut(m).zip(source) {
-                    column[i][r] = *v;
-                }
+                sources[r][i] = op.row::<B>(x, class, h ^ (1 << p));
             }
             let slot = 2 * h as usize + usize::from(filled);
             slots[r] = (op.crossing_start[slot], op.crossing_start[slot + 1]);
+        }
+        // Column by column, so that the stores run in order and the 2m
+        // source rows are read as parallel streams.
+        for (k, column) in gathered.chunks_exact_mut(m).enumerate() {
+            for (i, group) in column.iter_mut().enumerate() {
+                for (r, value) in group.iter_mut().enumerate() {
+                    *value = sources[r][i][k];
+                }
+            }
         }
         let len = slots[0].1 - slots[0].0;
         weights.extend(
