@@ -70,12 +70,12 @@ impl RowTable {
         Self { rows, entries }
     }
 
-    /// y_r += Σ j[k] x_{r'} over the rows of R rows of one panel at once,
+    /// y_r = Σ j[k] x_{r'} over the rows of R rows of one panel at once,
     /// lane by lane (`B` lanes interleaved: amplitude of row r, lane b at
     /// r·B + b), so that every table entry and its coupling are read once
     /// for all of them.
     #[inline(always)]
-    fn add_product_rows<const B: usize, const R: usize>(
+    fn product_rows<const B: usize, const R: usize>(
         &self,
         x: [&[[f64; B]]; R],
         j: &[f64],
@@ -95,10 +95,8 @@ impl RowTable {
                     }
                 }
             }
-            for (out, sum) in y.iter_mut().zip(&acc) {
-                for lane in 0..B {
-                    out[r][lane] += sum[lane];
-                }
+            for (out, sum) in y.iter_mut().zip(acc) {
+                out[r] = sum;
             }
         }
     }
@@ -482,8 +480,8 @@ fn apply_task<const B: usize>(
     let width = panel.cols;
     let mut sums = [LaneSums::default(); B];
     // Inside the low half: the class's table, four rows at a time so that
-    // every entry is decoded once for all of them.
-    ys.fill([0.0; B]);
+    // every entry is decoded once for all of them. These are the first terms
+    // of every row, so they overwrite y.
     let first = panel.start + first_row * panel.cols;
     let task_x = &x[first..first + ys.len()];
     let mut quads = ys.chunks_exact_mut(4 * width);
@@ -494,14 +492,14 @@ fn apply_task<const B: usize>(
         let y_rows: [&mut [[f64; B]]; 4] =
             std::array::from_fn(|_| y_rows.next().expect("four rows"));
         let x_rows: [&[[f64; B]]; 4] = std::array::from_fn(|_| x_rows.next().expect("four rows"));
-        op.inside[c].add_product_rows::<B, 4>(x_rows, &op.coupling, y_rows);
+        op.inside[c].product_rows::<B, 4>(x_rows, &op.coupling, y_rows);
     }
     for (yr, xr) in quads
         .into_remainder()
         .chunks_exact_mut(width)
         .zip(x_quads.remainder().chunks_exact(width))
     {
-        op.inside[c].add_product_rows::<B, 1>([xr], &op.coupling, [yr]);
+        op.inside[c].product_rows::<B, 1>([xr], &op.coupling, [yr]);
     }
     // The rest two rows at a time, so that the crossing tables are decoded
     // once for both; every row still receives its terms in the same order.
