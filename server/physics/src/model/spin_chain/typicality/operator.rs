@@ -108,7 +108,8 @@ impl RowTable {
     /// weights) share every decoded table entry, and their values sit side
     /// by side in g and j (`[column][source][row][lane]`), the weights
     /// repeated for every lane: with two lanes and two rows one product or
-    /// sum covers four values, a full AVX2 register.
+    /// sum covers four values, a full AVX2 register. `assign` overwrites y
+    /// instead of adding to it.
     #[inline(always)]
     fn add_crossing<const B: usize, const R: usize>(
         &self,
@@ -116,22 +117,23 @@ impl RowTable {
         m: usize,
         j: &[[[f64; B]; R]],
         y: &mut [[[f64; B]; R]],
+        assign: bool,
     ) {
         // A fixed count of sources lets the compiler unroll the inner loop
         // (a factor of about three fewer instructions than a loop over m).
         match m {
-            1 => self.add_crossing_fixed::<B, 1, R>(g, j, y),
-            2 => self.add_crossing_fixed::<B, 2, R>(g, j, y),
-            3 => self.add_crossing_fixed::<B, 3, R>(g, j, y),
-            4 => self.add_crossing_fixed::<B, 4, R>(g, j, y),
-            5 => self.add_crossing_fixed::<B, 5, R>(g, j, y),
-            6 => self.add_crossing_fixed::<B, 6, R>(g, j, y),
-            7 => self.add_crossing_fixed::<B, 7, R>(g, j, y),
-            8 => self.add_crossing_fixed::<B, 8, R>(g, j, y),
-            9 => self.add_crossing_fixed::<B, 9, R>(g, j, y),
-            10 => self.add_crossing_fixed::<B, 10, R>(g, j, y),
-            11 => self.add_crossing_fixed::<B, 11, R>(g, j, y),
-            _ => self.add_crossing_fixed::<B, MAX_HALF, R>(g, j, y),
+            1 => self.add_crossing_fixed::<B, 1, R>(g, j, y, assign),
+            2 => self.add_crossing_fixed::<B, 2, R>(g, j, y, assign),
+            3 => self.add_crossing_fixed::<B, 3, R>(g, j, y, assign),
+            4 => self.add_crossing_fixed::<B, 4, R>(g, j, y, assign),
+            5 => self.add_crossing_fixed::<B, 5, R>(g, j, y, assign),
+            6 => self.add_crossing_fixed::<B, 6, R>(g, j, y, assign),
+            7 => self.add_crossing_fixed::<B, 7, R>(g, j, y, assign),
+            8 => self.add_crossing_fixed::<B, 8, R>(g, j, y, assign),
+            9 => self.add_crossing_fixed::<B, 9, R>(g, j, y, assign),
+            10 => self.add_crossing_fixed::<B, 10, R>(g, j, y, assign),
+            11 => self.add_crossing_fixed::<B, 11, R>(g, j, y, assign),
+            _ => self.add_crossing_fixed::<B, MAX_HALF, R>(g, j, y, assign),
         }
     }
 
@@ -142,6 +144,7 @@ impl RowTable {
         g: &[[[f64; B]; R]],
         j: &[[[f64; B]; R]],
         y: &mut [[[f64; B]; R]],
+        assign: bool,
     ) {
         // Viewed as whole groups of M (bytemuck checks the length once):
         // one bounds check per entry.
@@ -167,8 +170,12 @@ impl RowTable {
                     }
                 }
             }
-            for (o, a) in out.as_flattened_mut().iter_mut().zip(acc.as_flattened()) {
-                *o += a;
+            if assign {
+                *out = acc;
+            } else {
+                for (o, a) in out.as_flattened_mut().iter_mut().zip(acc.as_flattened()) {
+                    *o += a;
+                }
             }
         }
     }
@@ -605,11 +612,14 @@ fn rows_outside<const B: usize, const R: usize>(
     // (take) a spin contributes the row of panel c + 1 (c − 1) with that
     // spin moved; the table of low sites is read once for all of them and
     // for all R rows (whose high halves have equally many up spins, so equal
-    // source counts m). Both directions add into `crossed`, whose columns
-    // hold the R rows side by side (contiguous for the compiler's vectors),
-    // and that sum is added to every row once.
-    scratch.crossed.clear();
-    scratch.crossed.resize(width, [[0.0; B]; R]);
+    // source counts m). The first direction writes `crossed` and the second
+    // adds to it; its columns hold the R rows side by side (contiguous for
+    // the compiler's vectors), and the sum is added to every row in the
+    // diagonal's pass.
+    if scratch.crossed.len() < width {
+        scratch.crossed.resize(width, [[0.0; B]; R]);
+    }
+    let mut crossed_any = false;
     for filled in [true, false] {
         let class = if filled { c + 1 } else { c.wrapping_sub(1) };
         if class > lb {
@@ -663,24 +673,24 @@ fn rows_outside<const B: usize, const R: usize>(
         } else {
             &op.from_low[c]
         };
-        table.add_crossing::<B, R>(gathered, m, weights, crossed);
+        table.add_crossing::<B, R>(gathered, m, weights, &mut crossed[..width], !crossed_any);
+        crossed_any = true;
     }
-    for (r, yr) in ys.iter_mut().enumerate() {
-        for (out, sum) in yr.iter_mut().zip(scratch.crossed.iter()) {
-            for b in 0..B {
-                out[b] += sum[r][b];
-            }
-        }
+    if !crossed_any {
+        scratch.crossed.clear();
+        scratch.crossed.resize(width, [[0.0; B]; R]);
     }
+    // The crossing sums, then the diagonal, the scaling and the lane sums.
     for (r, yr) in ys.iter_mut().enumerate() {
         let begin = panel.start + (row + r) * width;
         let xr = &x[begin..begin + width];
-        for (k, (out, xv)) in yr.iter_mut().zip(xr).enumerate() {
+        let crossed = &scratch.crossed[..width];
+        for (k, ((out, xv), sum)) in yr.iter_mut().zip(xr).zip(crossed).enumerate() {
             let a = begin + k;
             let d = op.diagonal[a] - shift;
             let z = back.map_or([0.0; B], |z| z[a]);
             for b in 0..B {
-                let v = (out[b] + xv[b] * d) * scale - z[b];
+                let v = ((out[b] + sum[r][b]) + xv[b] * d) * scale - z[b];
                 out[b] = v;
                 sums[b].overlap += xv[b] * v;
                 sums[b].norm_sq += v * v;
