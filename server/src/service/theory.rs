@@ -42,8 +42,8 @@ pub enum SpinMethod {
     Dtwa,
 }
 
-/// Largest chain `auto` gives to typicality: 20 sites take about 8 s on
-/// two cores; beyond, typicality takes minutes (24 sites: about 4 with
+/// Largest chain `auto` gives to typicality: 20 sites take about 7 s on
+/// two cores; beyond, typicality takes minutes (24 sites: about 3 with
 /// both cores free) where the semiclassical method takes seconds.
 pub const AUTO_TYPICAL_SITES: usize = 20;
 
@@ -130,8 +130,9 @@ impl ModelSpec {
     /// - DTWA: 9.1e-10 s per trajectory, Runge–Kutta step and N² (100 sites,
     ///   10⁴ trajectories, 470 steps: 43 s), plus 3e-7 s per trajectory and
     ///   step (12 sites, 4000 trajectories: 0.4 s);
-    /// - typicality: 8 s for 20 sites, 2 vectors, t = 10 (median of ten
-    ///   runs 7.8 s, 7.0–9.2 s wall, 13–18 s of CPU, both cores free), scaled by the vectors, by t and by
+    /// - typicality: 7 s for 20 sites, 2 vectors, t = 10 (median of ten
+    ///   runs 7.6 s, 7.3–9.2 s wall, on a busy evening; about 6 s in a quiet
+    ///   spell), scaled by the vectors, by t and by
     ///   2^N N² (sector dimensions times the flip-flop terms per state);
     /// - exact: 2e-9 s per Σ_k d_k³ over the sectors k ≤ N/2;
     /// - the others: N³ · 1e-9 s plus a millisecond.
@@ -164,7 +165,7 @@ impl ModelSpec {
                 }
                 Resolved::Typicality => (
                     format!("dynamical typicality, {} random vectors", self.samples),
-                    8.0 * (self.samples as f64 / 2.0) * (t_max / 10.0) * (2f64.powf(n) * n * n)
+                    7.0 * (self.samples as f64 / 2.0) * (t_max / 10.0) * (2f64.powf(n) * n * n)
                         / (2f64.powi(20) * 400.0),
                 ),
                 Resolved::Dtwa => {
