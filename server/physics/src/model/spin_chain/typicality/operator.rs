@@ -655,7 +655,7 @@ fn rows_outside<const B: usize, const R: usize>(
             let slot = 2 * h as usize + usize::from(filled);
             slots[r] = (op.crossing_start[slot], op.crossing_start[slot + 1]);
         }
-        // Column by column, so that the stores run in order and the 2m
+        // Column by column, so that the stores run in order and the R·m
         // source rows are read as parallel streams.
         for (k, column) in gathered.chunks_exact_mut(m).enumerate() {
             for (i, group) in column.iter_mut().enumerate() {
