@@ -70,10 +70,10 @@ impl RowTable {
         Self { rows, entries }
     }
 
-    /// y_r = Σ j[k] x_{r'} over the rows of R rows of one panel at once,
-    /// lane by lane (`B` lanes interleaved: amplitude of row r, lane b at
-    /// r·B + b), so that every table entry and its coupling are read once
-    /// for all of them.
+    /// y[c] = Σ j[k] x[c'] over the columns c of R rows of one panel at
+    /// once, lane by lane (each column holds its `B` lanes side by side), so
+    /// that every table entry and its coupling are read once for all of
+    /// them.
     #[inline(always)]
     fn product_rows<const B: usize, const R: usize>(
         &self,
@@ -101,8 +101,8 @@ impl RowTable {
         }
     }
 
-    /// y_r += Σ_{(r', q)} Σ_i j[q · m + i] · g[r' · m + i] over the rows of
-    /// y, lane by lane, where g holds the m source rows column by column:
+    /// y[c] += Σ_{(c', q)} Σ_i j[q · m + i] · g[c' · m + i] over the columns c
+    /// of y, lane by lane, where g holds the m source rows column by column:
     /// one table entry serves every source, and the sources of one column
     /// are contiguous. R rows of one panel (each with its own sources and
     /// weights) share every decoded table entry, and their values sit side
@@ -601,6 +601,8 @@ fn rows_outside<const B: usize, const R: usize>(
                 }
             }
         }
+        // At most MOVES_PER_PASS − 1 = 3 rows are left over.
+        const { assert!(MOVES_PER_PASS == 4) };
         match count {
             0 => {}
             1 => add_scaled_rows::<B, 1>(yr, &[moves[0]]),
@@ -676,6 +678,7 @@ fn rows_outside<const B: usize, const R: usize>(
         table.add_crossing::<B, R>(gathered, m, weights, &mut crossed[..width], !crossed_any);
         crossed_any = true;
     }
+    // No crossing at all only in a sector whose spins are all alike.
     if !crossed_any {
         scratch.crossed.clear();
         scratch.crossed.resize(width, [[0.0; B]; R]);
